@@ -1,0 +1,5 @@
+"""Allow ``python -m rigloop``."""
+
+from rigloop.cli import main
+
+raise SystemExit(main())
