@@ -1,0 +1,949 @@
+"""The engine loop: connect, supervise, estimate, command, record — at the device's pace.
+
+Pacing (design §2): by default the device's sample clock sets the loop. Every SAMPLE is answered
+with one COMMAND; if the host falls behind, every queued sample is still fed to the estimator and
+recorded, and one COMMAND answers the newest (the others count as ``late``). With
+``device.pacing: host`` a host timer sets the ticks and each tick uses the newest sample.
+
+Safety (design §4, safety.md): a trip is acted on the moment it is decided — the STOP frame is
+written to the link before anything else happens — and is latched until an explicit reset.
+Requests from a front end (e-stop, stop, arm, parameter changes …) arrive through
+:meth:`Engine.request`, which wakes the loop at once, also from a signal handler.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+import queue
+import select
+import socket
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from rigloop.engine.records import EventRecord, TickRecord, Trip
+from rigloop.engine.recorder import SessionRecorder, make_session_dir, utc_now_iso
+from rigloop.engine.states import State, TransitionRefused, next_state
+from rigloop.engine.supervisor import Supervisor
+from rigloop.engine.timing import LogHistogram
+
+log = logging.getLogger("rigloop.engine")
+
+#: Parameters a front end may change while running (config key path -> ControlParams field).
+TUNABLE_KEYS = {
+    "control.law": "law",
+    "control.order": "order",
+    "control.alpha": "alpha",
+    "control.kp": "kp",
+    "control.ki": "ki",
+    "control.kd": "kd",
+    "control.anti_windup": "anti_windup",
+    "control.pid_u0": "pid_u0",
+    "control.estimator.kind": "estimator",
+    "control.estimator.window_s": "window_s",
+    "control.derivative_window_s": "derivative_window_s",
+}
+
+HANDSHAKE_TIMEOUT_S = 5.0
+TRIP_TAIL_S = 0.25          # headless runs keep recording this long after a trip (safe rows on record)
+
+
+class EngineError(Exception):
+    """A failure before anything moved (cannot connect, device mismatch)."""
+
+
+@dataclass
+class RunResult:
+    outcome: str                      # completed | tripped | stopped
+    exit_code: int
+    session_dir: Path | None
+    trip: Trip | None
+    summary: dict
+    stop_reason: str
+    plan: dict | None = None
+
+
+@dataclass
+class _Request:
+    kind: str
+    args: dict = field(default_factory=dict)
+
+
+def control_params_from_config(cfg):
+    from rigloop.control.controller import ControlParams
+
+    c = cfg.control
+    return ControlParams(
+        law=c.law, order=c.order, alpha=c.alpha, kp=c.kp, ki=c.ki, kd=c.kd,
+        estimator=c.estimator.kind, window_s=c.estimator.window_s,
+        derivative_window_s=c.derivative_window_s, anti_windup=c.anti_windup, pid_u0=c.pid_u0,
+    )
+
+
+class Engine:
+    """One session on one device. Build it, optionally add subscribers, call :meth:`run`."""
+
+    def __init__(self, cfg, *, out_dir: Path | str | None = None, link=None, autostart: bool = True,
+                 duration_s: float | None = None, exit_after_trip: bool = True, record: bool = True,
+                 front_end: str = "cli", control_conn=None, front_end_timeout_s: float | None = None,
+                 status_sink=None, sim_extra: dict | None = None):
+        self.cfg = cfg
+        self.out_dir = Path(out_dir) if out_dir is not None else Path(cfg.recording.dir)
+        self.link = link
+        self.autostart = autostart
+        self.duration_s = duration_s if duration_s is not None else cfg.duration_s
+        self.exit_after_trip = exit_after_trip
+        self.record = record
+        self.front_end = front_end
+        self.control_conn = control_conn
+        self.front_end_timeout_s = front_end_timeout_s
+        self.status_sink = status_sink
+        self.sim_extra = sim_extra or {}
+        self.subscribers: list = []
+        self.state = State.DISCONNECTED
+        self._requests: queue.SimpleQueue[_Request] = queue.SimpleQueue()
+        self._wake_r, self._wake_w = socket.socketpair()
+        self._wake_r.setblocking(False)
+        self._wake_w.setblocking(False)
+        self.trip: Trip | None = None
+        self.pending_trip: Trip | None = None
+        self.stop_reason = ""
+        self.outcome = "running"
+        self.session_dir: Path | None = None
+        self.recorder: SessionRecorder | None = None
+        self.sim = None
+        self.hello = None
+        self.last_reply: dict | None = None
+        self._done = False
+        self._signal_stop = False
+        self._tail_until: float | None = None
+        self._ramp_then: str | None = None
+        self.plan = cfg.plan
+        self.plan_result: dict | None = None
+
+    # ------------------------------------------------------------------ front-end interface
+    def request(self, kind: str, **args) -> None:
+        """Queue a request and wake the loop at once (safe from signal handlers and threads)."""
+        self._requests.put(_Request(kind, args))
+        try:
+            self._wake_w.send(b"\x01")
+        except (BlockingIOError, OSError):
+            pass
+
+    def add_subscriber(self, sub) -> None:
+        self.subscribers.append(sub)
+
+    # ------------------------------------------------------------------ set-up
+    def _setup_session(self) -> None:
+        self.session_dir = make_session_dir(self.out_dir, self.cfg.rig)
+        handler = logging.FileHandler(self.session_dir / "engine.log", encoding="utf-8")
+        handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(message)s"))
+        log.addHandler(handler)
+        log.setLevel(logging.INFO)
+        self._log_handler = handler
+
+    def _open_link(self):
+        cfg = self.cfg
+        if self.link is not None:
+            return getattr(self.link, "url", "custom link")
+        if cfg.device.link == "sim":
+            from rigloop.sim.launcher import start_sim
+
+            self.sim = start_sim(cfg, **self.sim_extra)
+            from rigloop.link.udp import UdpLink
+
+            self.link = UdpLink(self.sim.host, self.sim.port)
+            log.info("simulated device started: %s (plant %s, clock %s)", self.sim.url,
+                     cfg.device.sim.plant, cfg.device.sim.clock)
+            return f"sim://{cfg.device.sim.plant}"
+        from rigloop.link import open_link
+
+        self.link = open_link(cfg.device)
+        return self.link.url
+
+    def _handshake(self) -> None:
+        from rigloop.protocol.messages import PROTOCOL_VERSION, Configure, Hello, Query
+
+        cfg = self.cfg
+        link = self.link
+        deadline = time.monotonic() + HANDSHAKE_TIMEOUT_S
+        hello = None
+        next_query = 0.0
+        while hello is None:
+            now = time.monotonic()
+            if now > deadline:
+                raise EngineError(f"no HELLO from the device at {link.url} within {HANDSHAKE_TIMEOUT_S:.0f} s; "
+                                  "check the cable/port, the device's power and its firmware")
+            if now >= next_query:
+                link.send(Query())
+                next_query = now + 0.5
+            for m in link.recv(0.1):
+                if isinstance(m, Hello):
+                    hello = m
+        if not hello.proto_min <= PROTOCOL_VERSION <= hello.proto_max:
+            raise EngineError(f"protocol mismatch: the host speaks version {PROTOCOL_VERSION}, the device "
+                              f"speaks {hello.proto_min}..{hello.proto_max}; update the firmware or rigloop")
+        if hello.n_channels != len(cfg.channels):
+            raise EngineError(f"the device sends {hello.n_channels} channels but the config lists "
+                              f"{len(cfg.channels)} (channels: {', '.join(c.name for c in cfg.channels)}); "
+                              "make the channels list match the firmware")
+        period_us = int(round(1e6 / cfg.device.rate_hz))
+        watchdog_us = int(round(cfg.device.watchdog_ms * 1000))
+        a = cfg.actuator
+        conf = Configure(period_us, watchdog_us, float(a.safe), float(a.min), float(a.max))
+        deadline = time.monotonic() + HANDSHAKE_TIMEOUT_S
+        acked = None
+        next_send = 0.0
+        while acked is None:
+            now = time.monotonic()
+            if now > deadline:
+                raise EngineError(f"the device at {link.url} did not acknowledge CONFIGURE "
+                                  f"(period {period_us} us, watchdog {watchdog_us} us) within "
+                                  f"{HANDSHAKE_TIMEOUT_S:.0f} s; check that it supports that rate")
+            if now >= next_send:
+                link.send(conf)
+                next_send = now + 1.0
+            for m in link.recv(0.1):
+                if isinstance(m, Hello) and m.period_us == period_us and m.watchdog_us == watchdog_us:
+                    acked = m
+                elif type(m).__name__ == "Fault" and getattr(m, "code", 0) == 4:
+                    raise EngineError(f"the device rejected CONFIGURE (period {period_us} us, watchdog "
+                                      f"{watchdog_us} us, actuator {a.min}..{a.max} safe {a.safe})")
+        self.hello = acked
+        info = {"fw_version": acked.fw_version, "n_channels": acked.n_channels, "period_us": acked.period_us,
+                "watchdog_us": acked.watchdog_us, "safe": acked.safe, "u_min": acked.u_min,
+                "u_max": acked.u_max, "name": acked.name}
+        if self.recorder:
+            self.recorder.set_device_hello(info)
+        log.info("device %r configured: %s", acked.name, info)
+
+    # ------------------------------------------------------------------ main entry
+    def run(self) -> RunResult:
+        from rigloop.control.controller import Controller
+        from rigloop.control.reference import build_reference
+        from rigloop.control.shaping import ActuatorShaper
+        from rigloop.engine.priority import raise_priority
+
+        cfg = self.cfg
+        if self.record:
+            self._setup_session()
+        url = "?"
+        try:
+            url = self._open_link()
+            if self.record:
+                self.recorder = SessionRecorder(self.session_dir, cfg, device_url=url)
+                self.subscribers.insert(0, self.recorder)
+            realtime = not (cfg.device.link == "sim" and cfg.device.sim.clock == "lockstep")
+            self.realtime = realtime
+            log.info("rigloop engine for rig %r, link %s, %g Hz, pacing %s", cfg.rig, url,
+                     cfg.device.rate_hz, cfg.device.pacing)
+            log.info(raise_priority(realtime=realtime))
+            self._handshake()
+        except Exception as exc:
+            msg = str(exc) if isinstance(exc, EngineError) else f"{type(exc).__name__}: {exc}"
+            log.error("could not start: %s", msg)
+            self._emit(EventRecord("link_fault", f"could not start: {msg}"))
+            self.stop_reason = f"could not start: {msg}"
+            self.outcome = "stopped"
+            self._finish_files({})
+            self._teardown()
+            raise EngineError(msg) from exc
+
+        self.period = 1.0 / cfg.device.rate_hz
+        self.channel_names = [c.name for c in cfg.channels]
+        self.scales = [(c.scale, c.offset) for c in cfg.channels]
+        self.out_idx = cfg.channel_index(cfg.control.output)
+        a = cfg.actuator
+        self.safe = float(a.safe)
+        self.shaper = ActuatorShaper(a.min, a.max, a.safe, a.slew_per_s)
+        self.shaper.reset(self.safe)
+        self.ramp_rate = a.slew_per_s if a.slew_per_s else (a.max - a.min)  # per second
+        self.params = control_params_from_config(cfg)
+        self.controller = Controller(self.params, ts=self.period, u_min=a.min, u_max=a.max, u_hold=self.safe)
+        if self.plan:
+            from rigloop.analysis.plan import plan_duration, plan_reference_spec
+
+            self.ref_spec = plan_reference_spec(self.plan)
+            if self.duration_s is None or cfg.raw.get("duration_s") == self.duration_s:
+                self.duration_s = plan_duration(self.plan)
+        else:
+            self.ref_spec = cfg.reference
+        self.reference = build_reference(self.ref_spec, base_dir=cfg.base_dir)
+        self.ref_origin = 0.0
+        self.supervisor = Supervisor(cfg)
+        self.lat_hist = LogHistogram()
+        self.comp_hist = LogHistogram()
+        self.lateness_hist = LogHistogram()
+        self.n_samples = 0
+        self.n_running = 0
+        self.sum_e2 = 0.0
+        self.max_abs_e = 0.0
+        self.late_ticks = 0
+        self.cmd_seq = 0
+        self.u_cmd = self.safe
+        self.t0_us = None
+        self.run_t0 = None          # device time (s) of the first running sample
+        self.t_last = None
+        self.last_cmd_t = None
+        self.min_offset = None
+        self.last_sample_host = time.perf_counter()
+        self.last_front_end = time.perf_counter()
+        self._last_status = 0.0
+        self._transition("connected")
+        self._emit(EventRecord("connected", f"{url} device {self.hello.name!r}"))
+        if self.autostart:
+            self._arm("autostart")
+        try:
+            self._loop()
+        except Exception as exc:  # the safety path fails loudly: stop the rig, then report
+            log.exception("internal error")
+            self._trip(Trip("internal-error", f"{type(exc).__name__}: {exc}", t=self.t_last))
+            self.outcome = "tripped"
+            self.stop_reason = f"internal error: {exc}"
+            self._finish_files(self._summary())
+            self._teardown()
+            raise
+        summary = self._summary()
+        self._finish_files(summary)
+        self._teardown()
+        return RunResult(self.outcome, self._exit_code(), self.session_dir, self.trip, summary,
+                         self.stop_reason, self.plan_result)
+
+    def _exit_code(self) -> int:
+        if self.outcome == "completed":
+            if self.plan_result is not None and not self.plan_result.get("passed", True):
+                return 4
+            return 0
+        if self.outcome == "tripped":
+            return 3
+        if self._signal_stop:
+            return 130
+        return 0 if self.outcome == "stopped" else 1
+
+    # ------------------------------------------------------------------ the loop
+    def _loop(self) -> None:
+        link = self.link
+        link_fd = link.fileno() if hasattr(link, "fileno") else None
+        wake_fd = self._wake_r.fileno()
+        conn = self.control_conn
+        conn_fd = conn.fileno() if conn is not None else None
+        host_pacing = self.cfg.device.pacing == "host"
+        next_tick = time.perf_counter() + self.period
+        pending: list = []
+        rfds = [wake_fd] + ([link_fd] if link_fd is not None else []) + ([conn_fd] if conn_fd is not None else [])
+        stale_s = self.supervisor.stale_s
+        while not self._done:
+            now = time.perf_counter()
+            timeout = max(0.0, min(0.05, self.last_sample_host + stale_s - now + 1e-4))
+            if host_pacing:
+                timeout = max(0.0, min(timeout, next_tick - now))
+            if link_fd is None:
+                timeout = min(timeout, 0.001)
+            try:
+                ready, _, _ = select.select(rfds, [], [], timeout)
+            except InterruptedError:  # pragma: no cover - PEP 475 retries; kept for old platforms
+                ready = [wake_fd]
+            if wake_fd in ready:
+                try:
+                    while self._wake_r.recv(4096):
+                        pass
+                except (BlockingIOError, InterruptedError):
+                    pass
+            if conn_fd is not None and conn_fd in ready:
+                self._read_front_end()
+            self._drain_requests()
+            msgs = link.recv(0.0)
+            t_arrival = time.perf_counter()
+            samples = self._route(msgs)
+            if samples:
+                self.last_sample_host = t_arrival
+                if host_pacing:
+                    pending.extend(samples)
+                else:
+                    self._handle_batch(samples, t_arrival)
+            now = time.perf_counter()
+            if host_pacing and now >= next_tick:
+                if pending:
+                    self._handle_batch(pending, now, deadline=next_tick)
+                    pending = []
+                next_tick += self.period
+                if next_tick < now:
+                    next_tick = now + self.period
+            self._periodic(now)
+
+    def _route(self, msgs) -> list:
+        from rigloop.protocol.messages import Fault, Hello, Sample
+
+        samples = []
+        for m in msgs:
+            if isinstance(m, Sample):
+                samples.append(m)
+            elif isinstance(m, Fault):
+                self._on_fault(m)
+            elif isinstance(m, Hello):
+                self._emit(EventRecord("warning", f"unexpected HELLO from the device (name {m.name!r}, "
+                                                  f"status 0x{m.status:02x}); it may have restarted"))
+        return samples
+
+    def _on_fault(self, m) -> None:
+        code = int(m.code)
+        t = self._dev_t(m.t_us) if self.t0_us is not None else None
+        names = {1: "command watchdog expired", 2: "sensor fault", 3: "hardware fault",
+                 4: "configuration rejected", 5: "receive buffer overflow"}
+        text = names.get(code, f"vendor fault 0x{code:04x}")
+        self._emit(EventRecord("device_fault", f"device reports FAULT {code}: {text}", t=t, value=m.value))
+        if self.state in (State.RUNNING, State.STOPPING) or code != 1:
+            cause = "device-watchdog" if code == 1 else "device-fault"
+            self._trip(Trip(cause, f"the device reports: {text}", t=t, value=m.value))
+
+    def _dev_t(self, t_us: int) -> float:
+        return (t_us - self.t0_us) * 1e-6
+
+    def _handle_batch(self, samples, t_arrival: float, deadline: float | None = None) -> None:
+        """Feed every sample to supervisor/estimator/recorder; command once, for the newest."""
+        from rigloop.protocol.messages import Command
+
+        n = len(samples)
+        late = n - 1
+        if late:
+            self.late_ticks += late
+        for i, s in enumerate(samples):
+            t_start = time.perf_counter()
+            newest = i == n - 1
+            if self.t0_us is None:
+                self.t0_us = s.t_us
+            t = self._dev_t(s.t_us)
+            dt = t - self.t_last if self.t_last is not None else self.period
+            self.t_last = t
+            raw = s.channels
+            values = [raw[j] * sc + off for j, (sc, off) in enumerate(self.scales)] if len(raw) == len(self.scales) \
+                else [math.nan] * len(self.scales)
+            y = values[self.out_idx]
+            self._status_bits = s.status
+            running = self.state is State.RUNNING
+            trip = self.supervisor.check_status(t, s.status, self.state in (State.RUNNING, State.STOPPING)) \
+                or self.supervisor.check_sample(t, values, running)
+            if trip is not None:
+                self._trip(trip)
+            r = dr = e = f_hat = math.nan
+            state = self.state
+            if state is State.RUNNING:
+                if self.run_t0 is None:
+                    self.run_t0 = t
+                    self._start_blend(y)
+                t_rel = t - self.run_t0
+                r, dr, ddr = self.reference.at(t_rel - self.ref_origin)
+                u_req = self.controller.step(y, s.applied, r, dr, ddr)
+                f_hat = self.controller.f_hat
+                e = y - r
+                trip = self.supervisor.check_output(t, u_req)
+                if trip is not None:
+                    self._trip(trip)
+                    u_req = self.safe
+                else:
+                    self.n_running += 1
+                    self.sum_e2 += e * e
+                    if abs(e) > self.max_abs_e:
+                        self.max_abs_e = abs(e)
+                    self._check_run_time(t, t_rel)
+            elif state is State.STOPPING:
+                u_req = self.safe
+            else:
+                u_req = self.safe
+            latency_ms = math.nan
+            lateness_ms = math.nan
+            if newest:
+                if self.state is State.STOPPING:
+                    u_cmd = self._ramp_step(t)
+                elif self.state is State.RUNNING:
+                    cmd_dt = t - self.last_cmd_t if self.last_cmd_t is not None else self.period
+                    u_cmd = self.shaper.shape(u_req, cmd_dt if cmd_dt > 0 else self.period)
+                else:
+                    u_cmd = self.safe
+                    self.shaper.reset(self.safe)
+                self.cmd_seq = (self.cmd_seq + 1) & 0xFFFFFFFF
+                self.link.send(Command(self.cmd_seq, s.seq, float(u_cmd)))
+                t_sent = time.perf_counter()
+                self.u_cmd = u_cmd
+                self.last_cmd_t = t
+                latency_ms = (t_sent - t_arrival) * 1e3
+                self.lat_hist.add(latency_ms * 1e-3)
+                if deadline is not None:
+                    lateness_ms = (t_sent - deadline) * 1e3
+                elif not self.realtime:
+                    lateness_ms = math.nan   # lockstep: device time is not wall time
+                else:
+                    off = t_arrival - t
+                    if self.min_offset is None or off < self.min_offset:
+                        self.min_offset = off
+                    else:
+                        self.min_offset += 1e-4 * max(dt, 0.0)  # let the estimate follow clock drift
+                    lateness_ms = (t_sent - (t + self.min_offset)) * 1e3
+                if lateness_ms == lateness_ms:
+                    self.lateness_hist.add(max(lateness_ms, 0.0) * 1e-3 + 1e-9)
+                if (late or lateness_ms > self.period * 1e3) and self.state is State.RUNNING:
+                    trip = self.supervisor.check_overrun(t, t_sent)
+                    if trip is not None:
+                        self._trip(trip)
+            self.n_samples += 1
+            compute_us = (time.perf_counter() - t_start) * 1e6
+            self.comp_hist.add(compute_us * 1e-6)
+            rec = TickRecord(t, s.seq, r, dr, y, e, self.u_cmd, s.applied, f_hat, state.value, values,
+                             s.status, latency_ms, compute_us, late if newest else 0, lateness_ms)
+            self._publish(rec)
+        self._check_tail()
+
+    def _start_blend(self, y: float) -> None:
+        """Start the profile from where the rig is: blend from the measured y into r(0)."""
+        from rigloop.control.reference import StartFrom
+
+        r0 = self.reference.at(0.0)[0]
+        if not math.isfinite(y) or y == r0:
+            return
+        blend = float(self.ref_spec.get("blend_s") or 1.0)
+        self.reference = StartFrom(self.reference, y, blend)
+        self._emit(EventRecord("profile", f"start blend from {y:.6g} to {r0:.6g} over {blend:g} s", t=self.t_last))
+
+    def _check_run_time(self, t: float, t_rel: float) -> None:
+        trip = self.supervisor.check_duration(t, t_rel)
+        if trip is not None:
+            self._trip(trip)
+            return
+        if self.duration_s is not None and t_rel >= self.duration_s and self._ramp_then is None:
+            self.stop_reason = "duration reached"
+            self._ramp_down(then="complete")
+
+    def _ramp_step(self, t: float) -> float:
+        """One step of a ramped stop: down at the actuator slew, then STOP when safe is reached."""
+        from rigloop.protocol.messages import Stop, StopReason
+
+        dt = t - self.last_cmd_t if self.last_cmd_t is not None else self.period
+        step = self.ramp_rate * max(dt, self.period)
+        u = self.u_cmd
+        u = max(u - step, self.safe) if u > self.safe else min(u + step, self.safe)
+        if u == self.safe:
+            reason = StopReason.TRIP if self.pending_trip is not None else StopReason.OPERATOR
+            self.link.send(Stop(reason))
+            self._emit(EventRecord("stop", "ramped stop complete; STOP sent", t=t))
+            if self.pending_trip is not None:
+                self.state = next_state(self.state, "trip")
+                self.pending_trip = None
+                if self.exit_after_trip:
+                    self._tail_until = t + TRIP_TAIL_S
+            else:
+                self._transition("ramped_out")
+                if self._ramp_then == "complete":
+                    self.outcome = "completed"
+                    self._done = True
+                elif self._ramp_then == "quit":
+                    self._done = True
+            self._ramp_then = None
+        self.shaper.reset(u)
+        return u
+
+    def _check_tail(self) -> None:
+        if self._tail_until is not None and self.t_last is not None and self.t_last >= self._tail_until:
+            self._done = True
+
+    # ------------------------------------------------------------------ actions
+    def _transition(self, event: str) -> None:
+        new = next_state(self.state, event)
+        if new is not self.state:
+            log.info("state %s -> %s (%s)", self.state.value, new.value, event)
+        self.state = new
+
+    def _trip(self, trip: Trip) -> None:
+        """Latch a trip. Immediate: STOP goes out now. Ramped: ramp down first, then STOP."""
+        from rigloop.protocol.messages import Stop, StopReason
+
+        if self.state is State.TRIPPED:
+            return
+        if self.trip is None:
+            self.trip = trip
+        if trip.stop == "ramped" and self.state is State.RUNNING:
+            self.pending_trip = trip
+            self.state = State.STOPPING
+            log.warning("trip (ramped stop): %s", trip.message)
+            self._emit(EventRecord("trip", f"{trip.cause}: {trip.message} (ramped stop)", t=trip.t,
+                                   value=_num(trip.value), limit=_num(trip.limit)))
+            return
+        if self.state is State.STOPPING and self.pending_trip is not None and trip.stop == "ramped":
+            return
+        reason = StopReason.ESTOP if trip.cause == "e-stop" else StopReason.TRIP
+        try:
+            self.link.send(Stop(reason))      # first: the wire
+        except Exception as exc:  # noqa: BLE001 - a dead link is itself a reason, keep going
+            log.error("could not send STOP: %s", exc)
+        self.u_cmd = self.safe
+        self.shaper.reset(self.safe)
+        self.pending_trip = None
+        self.state = next_state(self.state, "trip")
+        log.warning("TRIP (%s stop): %s", trip.stop, trip.message)
+        self._emit(EventRecord("trip", f"{trip.cause}: {trip.message}", t=trip.t,
+                               value=_num(trip.value), limit=_num(trip.limit)))
+        if self.exit_after_trip:
+            base = self.t_last if self.t_last is not None else 0.0
+            self._tail_until = base + TRIP_TAIL_S
+
+    def _ramp_down(self, then: str | None = None) -> None:
+        if self.state is State.RUNNING:
+            self._transition("ramp_down")
+            self._ramp_then = then
+            self._emit(EventRecord("stop", f"ramped stop requested ({self.stop_reason or 'operator'})", t=self.t_last))
+        elif then in ("complete", "quit"):
+            self._done = True
+            if then == "complete":
+                self.outcome = "completed"
+
+    def _arm(self, source: str) -> None:
+        from rigloop.protocol.messages import Arm
+
+        self._transition("arm")
+        self.link.send(Arm())
+        self.controller.reset(self.safe)
+        self.shaper.reset(self.safe)
+        self.run_t0 = None
+        self.ref_origin = 0.0
+        self._emit(EventRecord("armed", f"armed ({source})", t=self.t_last))
+
+    def _drain_requests(self) -> None:
+        while True:
+            try:
+                req = self._requests.get_nowait()
+            except queue.Empty:
+                return
+            try:
+                self._handle_request(req)
+            except TransitionRefused as exc:
+                self._reply(req, False, str(exc))
+
+    def _reply(self, req: _Request, ok: bool, message: str) -> None:
+        self.last_reply = {"id": req.args.get("id"), "kind": req.kind, "ok": ok, "message": message}
+        if not ok:
+            log.info("request %s refused: %s", req.kind, message)
+
+    def _handle_request(self, req: _Request) -> None:
+        from rigloop.protocol.messages import Stop, StopReason
+
+        k = req.kind
+        a = req.args
+        if k == "estop":
+            src = a.get("source", self.front_end)
+            self._signal_stop = self._signal_stop or bool(a.get("signal"))
+            if self.state is State.TRIPPED:
+                self.link.send(Stop(StopReason.ESTOP))
+                self._emit(EventRecord("estop", f"e-stop ({src}) while already tripped; STOP re-sent", t=self.t_last))
+            else:
+                self._emit(EventRecord("estop", f"e-stop ({src})", t=self.t_last))
+                self._trip(Trip("e-stop", f"operator e-stop ({src})", t=self.t_last))
+            self.stop_reason = self.stop_reason or f"operator e-stop ({src})"
+            self._reply(req, True, "e-stop sent")
+        elif k == "stop":
+            self._transition("stop")
+            self.link.send(Stop(StopReason.OPERATOR))
+            self.u_cmd = self.safe
+            self.shaper.reset(self.safe)
+            self._ramp_then = None
+            self.pending_trip = None
+            self._emit(EventRecord("stop", f"stop ({a.get('source', self.front_end)}): safe output at once", t=self.t_last))
+            self._reply(req, True, "stopped")
+        elif k == "ramp_down":
+            self.stop_reason = a.get("reason", "operator ramp-down")
+            self._ramp_down(then=a.get("then"))
+            self._reply(req, True, "ramping down")
+        elif k == "arm":
+            if self.state is State.TRIPPED:
+                raise TransitionRefused("the rig is tripped: reset first, then arm")
+            self._arm(a.get("source", self.front_end))
+            self._reply(req, True, "armed")
+        elif k == "reset":
+            self._transition("reset")
+            self.trip_cleared = self.trip
+            self._emit(EventRecord("reset", "trip reset by the operator; output stays safe until armed", t=self.t_last))
+            self._tail_until = None
+            self._reply(req, True, "reset")
+        elif k == "set":
+            self._set_param(req)
+        elif k == "setpoint":
+            self._set_setpoint(req)
+        elif k == "profile":
+            self._start_profile(req)
+        elif k == "quit":
+            self.stop_reason = self.stop_reason or a.get("reason", "operator quit")
+            if self.state is State.RUNNING:
+                self._ramp_down(then="quit")
+            elif self.state is State.STOPPING:
+                self._ramp_then = "quit"
+            else:
+                self._done = True
+            self._reply(req, True, "quitting")
+        elif k == "ping":
+            pass
+        else:
+            self._reply(req, False, f"unknown request {k!r}")
+
+    def _set_param(self, req: _Request) -> None:
+        from rigloop.config import ConfigError, apply_overrides, parse_config
+
+        key = req.args["key"]
+        value = req.args["value"]
+        if key not in TUNABLE_KEYS:
+            self._reply(req, False, f"{key} cannot be changed while running; tunable: {', '.join(TUNABLE_KEYS)}")
+            return
+        try:
+            import yaml
+
+            text = value if isinstance(value, str) else yaml.safe_dump(value).strip().removesuffix("...").strip()
+            raw = apply_overrides(self.cfg.raw, [f"{key}={text}"])
+            new_cfg = parse_config(raw, base_dir=self.cfg.base_dir, source="live change")
+        except ConfigError as exc:
+            self._reply(req, False, "; ".join(f"{p.key}: {p.message}" for p in exc.problems))
+            return
+        except ValueError as exc:
+            self._reply(req, False, str(exc))
+            return
+        new_params = control_params_from_config(new_cfg)
+        changes = {f: getattr(new_params, f) for f in TUNABLE_KEYS.values()
+                   if getattr(new_params, f) != getattr(self.params, f)}
+        old = {f: getattr(self.params, f) for f in changes}
+        try:
+            if changes:
+                self.controller.update_params(**changes)
+        except ValueError as exc:
+            self._reply(req, False, str(exc))
+            return
+        self.cfg = new_cfg
+        self.params = new_params
+        detail = ", ".join(f"{f}={changes[f]!r} (was {old[f]!r})" for f in changes) or f"{key} unchanged"
+        num = _num(changes[TUNABLE_KEYS[key]]) if TUNABLE_KEYS[key] in changes else None
+        self._emit(EventRecord("param", f"{key}: {detail}", t=self.t_last, value=num if isinstance(num, float) else None))
+        self._reply(req, True, detail)
+
+    def _t_rel_now(self) -> float:
+        if self.run_t0 is None or self.t_last is None:
+            return 0.0
+        return self.t_last - self.run_t0
+
+    def _set_setpoint(self, req: _Request) -> None:
+        from rigloop.control.reference import with_setpoint
+
+        level = float(req.args["level"])
+        blend = float(req.args.get("blend_s", 1.0))
+        lim = self.cfg.limits.channels.get(self.cfg.control.output)
+        if lim is not None and ((lim.max is not None and level > lim.max) or (lim.min is not None and level < lim.min)):
+            self._reply(req, False, f"setpoint {level:g} lies outside the limits of {self.cfg.control.output} "
+                                    f"[{lim.min}, {lim.max}]")
+            return
+        if not (math.isfinite(level) and math.isfinite(blend) and blend > 0):
+            self._reply(req, False, "setpoint and blend time must be finite numbers, blend_s > 0 "
+                                    "(a raw step has an infinite derivative)")
+            return
+        t_now = self._t_rel_now() - self.ref_origin
+        try:
+            self.reference = with_setpoint(self.reference, t_now, level, blend)
+        except ValueError as exc:
+            self._reply(req, False, str(exc))
+            return
+        self._emit(EventRecord("setpoint", f"blend_s={blend:g}", t=self.t_last, value=level))
+        self._reply(req, True, f"setpoint {level:g} over {blend:g} s")
+
+    def _start_profile(self, req: _Request) -> None:
+        from rigloop.control.reference import build_reference
+
+        self.reference = build_reference(self.ref_spec, base_dir=self.cfg.base_dir)
+        self.ref_origin = self._t_rel_now()
+        self._emit(EventRecord("profile", f"reference profile '{self.ref_spec.get('kind')}' restarted",
+                               t=self.t_last))
+        self._reply(req, True, "profile started")
+
+    # ------------------------------------------------------------------ periodic work
+    def _read_front_end(self) -> None:
+        conn = self.control_conn
+        try:
+            while conn.poll():
+                kind, args = conn.recv()
+                self.last_front_end = time.perf_counter()
+                self.request(kind, **args)
+        except (EOFError, OSError):
+            self.control_conn = None
+            self._front_end_lost("the front end closed its connection")
+
+    def _front_end_lost(self, why: str) -> None:
+        self.front_end_timeout_s = None
+        log.warning("front end lost: %s", why)
+        self.stop_reason = "front end lost"
+        if self.state in (State.RUNNING, State.STOPPING):
+            self._trip(Trip("front-end-lost", f"front end lost ({why}); controlled stop", t=self.t_last, stop="ramped"))
+            self.exit_after_trip = True
+        else:
+            if self.state is not State.TRIPPED:
+                self._trip(Trip("front-end-lost", f"front end lost ({why})", t=self.t_last))
+            self._done = True
+        self._ramp_then = "quit"
+
+    def _periodic(self, now: float) -> None:
+        if self.state is not State.DISCONNECTED and not self._done:
+            trip = self.supervisor.check_stale(self.t_last, now - self.last_sample_host)
+            if trip is not None and self.state is not State.TRIPPED:
+                self._trip(trip)
+                self._tail_until = None
+                if self.exit_after_trip:
+                    self._done = True
+            elif trip is not None and self.exit_after_trip and self._tail_until is not None:
+                self._done = True  # no more rows will come: finish now
+        rejected = self.link.counters.rejected.total_rejected
+        trip = self.supervisor.check_link(self.t_last, rejected, now)
+        if trip is not None:
+            self._emit(EventRecord("link_fault", trip.message, t=self.t_last, value=trip.value, limit=trip.limit))
+            self._trip(trip)
+        if self.front_end_timeout_s is not None and now - self.last_front_end > self.front_end_timeout_s:
+            self._front_end_lost(f"no message for {now - self.last_front_end:.1f} s")
+        for sub in self.subscribers:
+            try:
+                sub.poll(now)
+            except Exception as exc:  # noqa: BLE001
+                self._subscriber_failed(sub, exc)
+        if self.status_sink is not None and now - self._last_status >= 0.1:
+            self._last_status = now
+            try:
+                self.status_sink(self.status())
+            except Exception:  # noqa: BLE001 - a display sink never stops the rig
+                log.exception("status sink failed")
+
+    def _publish(self, rec: TickRecord) -> None:
+        for sub in self.subscribers:
+            try:
+                sub.on_tick(rec)
+            except Exception as exc:  # noqa: BLE001
+                self._subscriber_failed(sub, exc)
+
+    def _emit(self, ev: EventRecord) -> None:
+        if not ev.wall_utc:
+            ev.wall_utc = utc_now_iso()
+        log.info("event %s: %s", ev.kind, ev.detail)
+        for sub in self.subscribers:
+            try:
+                sub.on_event(ev)
+            except Exception as exc:  # noqa: BLE001
+                if getattr(sub, "critical", False) and ev.kind != "trip":
+                    self._subscriber_failed(sub, exc)
+
+    def _subscriber_failed(self, sub, exc: Exception) -> None:
+        if getattr(sub, "critical", False):
+            self.subscribers.remove(sub)
+            log.error("recorder failed: %s", exc)
+            self._trip(Trip("recorder-failed", f"the recorder failed ({exc}); stopping rather than running unrecorded",
+                            t=self.t_last))
+        else:
+            log.warning("display subscriber %r failed: %s (removed)", sub, exc)
+            self.subscribers.remove(sub)
+
+    # ------------------------------------------------------------------ status and summary
+    def status(self) -> dict:
+        c = self.link.counters if self.link is not None else None
+        trip = self.trip.as_dict() if self.trip is not None else None
+        return {
+            "state": self.state.value,
+            "t": self.t_last,
+            "trip": trip if self.state in (State.TRIPPED, State.STOPPING) else None,
+            "last_trip": trip,
+            "session_dir": str(self.session_dir) if self.session_dir else None,
+            "samples": self.n_samples,
+            "lost_samples": c.lost_samples if c else 0,
+            "rejected": c.rejected.as_dict() if c else {},
+            "latency_ms": self.lat_hist.summary(1e3),
+            "lateness_ms": self.lateness_hist.summary(1e3),
+            "compute_us": self.comp_hist.summary(1e6, 1),
+            "late_ticks": self.late_ticks,
+            "margins": self.supervisor.margins(),
+            "device_status": self._last_status_bits(),
+            "params": {k: getattr(self.params, f) for k, f in TUNABLE_KEYS.items()},
+            "reply": self.last_reply,
+            "rate_hz": self.cfg.device.rate_hz,
+            "done": self._done,
+        }
+
+    def _last_status_bits(self) -> int:
+        return getattr(self, "_status_bits", 0)
+
+    def _summary(self) -> dict:
+        c = self.link.counters if self.link is not None else None
+        n = self.n_running
+        return {
+            "samples": self.n_samples,
+            "running_samples": n,
+            "duration_s": round(self._t_rel_now(), 6),
+            "rms_error": math.sqrt(self.sum_e2 / n) if n else None,
+            "max_abs_error": self.max_abs_e if n else None,
+            "lost_samples": c.lost_samples if c else 0,
+            "rejected_frames": c.rejected.as_dict() if c else {},
+            "late_ticks": self.late_ticks,
+            "latency_ms": self.lat_hist.summary(1e3),
+            "lateness_ms": self.lateness_hist.summary(1e3),
+            "compute_us": self.comp_hist.summary(1e6, 1),
+        }
+
+    def _finish_files(self, summary: dict) -> None:
+        if self.outcome == "running":
+            if self.trip is not None and self.trip.cause != "e-stop":
+                self.outcome = "tripped"
+            elif self.trip is not None:
+                self.outcome = "stopped"
+            else:
+                self.outcome = "stopped"
+        if self.trip is not None and not self.stop_reason:
+            self.stop_reason = self.trip.message
+        self._emit(EventRecord("ended", f"outcome {self.outcome}: {self.stop_reason}", t=self.t_last))
+        if self.recorder is not None:
+            plan = None
+            self.recorder.close(outcome=self.outcome, stop_reason=self.stop_reason,
+                                trip=self.trip.as_dict() if self.trip else None, summary=_clean(summary))
+            if self.plan and self.outcome in ("completed", "tripped", "stopped"):
+                plan = self._evaluate_plan()
+                if plan is not None:
+                    self.recorder.update_meta(plan=plan)
+
+    def _evaluate_plan(self) -> dict | None:
+        try:
+            from rigloop.analysis.plan import evaluate_plan
+            from rigloop.analysis.session import load_session
+
+            result = evaluate_plan(self.plan, load_session(self.session_dir))
+            self.plan_result = result.as_dict()
+            return self.plan_result
+        except Exception as exc:  # noqa: BLE001 - a plan verdict never hides the recording
+            log.exception("plan evaluation failed")
+            self.plan_result = {"passed": False, "error": str(exc), "criteria": []}
+            return self.plan_result
+
+    def _teardown(self) -> None:
+        if self.link is not None:
+            try:
+                self.link.close()
+            except Exception:  # noqa: BLE001
+                pass
+        if self.sim is not None:
+            self.sim.stop()
+        for s in (self._wake_r, self._wake_w):
+            s.close()
+        if getattr(self, "_log_handler", None) is not None:
+            log.removeHandler(self._log_handler)
+            self._log_handler.close()
+
+
+def _num(x):
+    if x is None:
+        return None
+    try:
+        return float(x)
+    except (TypeError, ValueError):
+        return None
+
+
+def _clean(d):
+    if isinstance(d, dict):
+        return {k: _clean(v) for k, v in d.items()}
+    if isinstance(d, float) and not math.isfinite(d):
+        return None
+    return d
