@@ -1,0 +1,192 @@
+"""The lab-notebook figure of a session (or two sessions overlaid): PNG, and SVG on request.
+
+Four stacked panels share the time axis: output with reference; actuator commanded and
+applied with its limits; the estimate F̂; the error. Trips are marked with a red vertical line
+and their cause, transitions with a dotted line and their number; stretches where the loop was
+not running are shaded. Sizes are chosen for an A4 page printed at 100 %.
+
+Built on ``matplotlib.figure.Figure`` directly (no pyplot), so nothing global is touched and no
+display is needed.
+"""
+
+from __future__ import annotations
+
+import math
+import textwrap
+from pathlib import Path
+
+import numpy as np
+from matplotlib.figure import Figure
+
+from rigloop.analysis.report import SessionAnalysis, fmt
+from rigloop.analysis.session import ACTIVE_STATE
+
+#: Above this many samples a trace is drawn as its per-bucket min/max envelope.
+MAX_PLOT_POINTS = 20_000
+_FONT = {"label": 10, "tick": 9, "title": 12, "caption": 9, "marker": 8}
+_CAPTION_CHARS = 120   # fits the page width at the caption's font size
+_STYLE = ({"color": "tab:blue", "ls": "-"}, {"color": "tab:orange", "ls": "-"})
+
+
+def session_figure(analyses: list[SessionAnalysis]) -> Figure:
+    """Figure for one session, or two overlaid (A solid, B in the second colour)."""
+    if not 1 <= len(analyses) <= 2:
+        raise ValueError(f"session_figure takes one or two analyses, got {len(analyses)}")
+    tags = ["A: ", "B: "] if len(analyses) == 2 else [""]
+    caption_lines = [line for tag, an in zip(tags, analyses)
+                     for line in textwrap.wrap(_caption(an, tag), width=_CAPTION_CHARS,
+                                               subsequent_indent="    ")]
+    bottom = 0.012 + 0.0155 * len(caption_lines)
+    fig = Figure(figsize=(8.27, 10.5), layout="constrained")
+    fig.get_layout_engine().set(rect=(0.0, bottom, 1.0, 1.0 - bottom))
+    axes = fig.subplots(4, 1, sharex=True, gridspec_kw={"height_ratios": [3, 2, 1.5, 1.5]})
+    ax_y, ax_u, ax_f, ax_e = axes
+    first = analyses[0]
+    units = first.session.units
+    act = first.session.actuator
+    two = len(analyses) == 2
+
+    for k, (tag, an) in enumerate(zip(tags, analyses)):
+        s, style = an.session, _STYLE[k]
+        t = s.samples["t"]
+        ax_y.plot(*_envelope(t, s.column("ref")), color="black" if k == 0 else "dimgray",
+                  ls="--" if k == 0 else ":", lw=1.2, label=f"{tag}reference r")
+        ax_y.plot(*_envelope(t, s.column("y")), lw=1.2, label=f"{tag}output y", **style)
+        ax_u.plot(*_envelope(t, s.column("u_cmd")), lw=0.9, alpha=0.7, color=style["color"],
+                  ls=":", label=f"{tag}commanded")
+        ax_u.plot(*_envelope(t, s.column("u")), lw=1.2, label=f"{tag}applied", **style)
+        ax_f.plot(*_envelope(t, s.column("f_hat")), lw=1.0, label=tag + r"$\hat{F}$", **style)
+        ax_e.plot(*_envelope(t, s.column("e")), lw=1.0, label=f"{tag}e = y − r", **style)
+        if k == 0:
+            _shade_not_running(axes, t, s.samples.get("state"))
+        _mark_transitions(axes, an, tag, row=k)
+        _mark_trips(axes, an, tag)
+
+    for level, name in ((act["min"], "min"), (act["max"], "max")):
+        if math.isfinite(level):
+            ax_u.axhline(level, color="dimgray", ls="--", lw=0.9)
+            ax_u.annotate(f"actuator {name} {fmt(level)}", xy=(1.0, level),
+                          xycoords=("axes fraction", "data"),
+                          xytext=(-4, 3 if name == "min" else -10), textcoords="offset points",
+                          ha="right", fontsize=_FONT["marker"], color="dimgray")
+    ax_e.axhline(0.0, color="black", lw=0.6)
+
+    _label(ax_y, first.session.output_name, units["y"])
+    _label(ax_u, act["name"], units["u"])
+    _label(ax_f, r"estimate $\hat{F}$", units["f"])
+    _label(ax_e, "error y − r", units["y"])
+    ax_e.set_xlabel("time since first sample [s]", fontsize=_FONT["label"])
+    for ax in axes:
+        ax.grid(True, color="0.85", lw=0.6)
+        ax.tick_params(labelsize=_FONT["tick"])
+        if ax.get_legend_handles_labels()[0]:
+            ax.legend(fontsize=_FONT["marker"], loc="upper left", ncol=2 if two else 1,
+                      framealpha=0.85)
+
+    s0 = first.session
+    if two:
+        s1 = analyses[1].session
+        title = f"{s0.rig}: A {s0.name} vs B {s1.name}"
+    else:
+        title = f"{s0.rig} — session started {s0.started_utc} (UTC)"
+    fig.suptitle(title, fontsize=_FONT["title"])
+    fig.text(0.01, 0.008, "\n".join(caption_lines), fontsize=_FONT["caption"], va="bottom",
+             ha="left")
+    return fig
+
+
+def save_figure(analyses: list[SessionAnalysis], *, png: str | Path | None = None,
+                svg: str | Path | None = None, dpi: int = 150) -> list[Path]:
+    """Write the figure to the given files; returns the paths written."""
+    fig = session_figure(analyses)
+    written = []
+    for path, fmt_name in ((png, "png"), (svg, "svg")):
+        if path is None:
+            continue
+        path = Path(path)
+        fig.savefig(path, format=fmt_name, dpi=dpi, facecolor="white")
+        written.append(path)
+    return written
+
+
+def _label(ax, name: str, unit: str) -> None:
+    ax.set_ylabel(f"{name} [{unit}]" if unit else name, fontsize=_FONT["label"])
+
+
+def _caption(an: SessionAnalysis, tag: str) -> str:
+    y = an.session.units["y"]
+    unit = f" {y}" if y else ""
+    run = an.run
+    trips = f"{len(an.trips)} trip(s)" if an.trips else "no trips"
+    plan = ""
+    if an.plan is not None:
+        plan = f" · plan {'passed' if an.plan.get('passed') else 'FAILED'}"
+    ended = "" if an.session.clean_end else " (ended without a clean stop)"
+    return (f"{tag}{an.session.name}: outcome {an.session.outcome}{ended} · "
+            f"RMS error {fmt(run.rms_error)}{unit} · IAE {fmt(run.iae)}{unit}·s · "
+            f"max |error| {fmt(run.max_abs_error)}{unit} · {trips}{plan}")
+
+
+def _envelope(t: np.ndarray, y: np.ndarray, max_points: int = MAX_PLOT_POINTS):
+    """``(t, y)`` thinned to at most ~max_points, keeping each bucket's min and max so that
+    spikes stay visible."""
+    n = t.size
+    if n <= max_points:
+        return t, y
+    buckets = max_points // 2
+    edges = np.linspace(0, n, buckets + 1).astype(int)
+    idx = []
+    for a, b in zip(edges[:-1], edges[1:]):
+        seg = y[a:b]
+        if not np.isfinite(seg).any():
+            idx.append(a)
+            continue
+        lo, hi = a + int(np.nanargmin(seg)), a + int(np.nanargmax(seg))
+        idx.extend(sorted({lo, hi}))
+    idx = np.asarray(idx)
+    return t[idx], y[idx]
+
+
+def _shade_not_running(axes, t: np.ndarray, state: np.ndarray | None) -> None:
+    if state is None or t.size == 0:
+        return
+    off = state != ACTIVE_STATE
+    if not off.any():
+        return
+    change = np.flatnonzero(np.diff(off.astype(np.int8))) + 1
+    starts = np.concatenate(([0], change))
+    ends = np.concatenate((change, [t.size]))
+    label = "loop not running"
+    for a, b in zip(starts, ends):
+        if off[a]:
+            t1 = t[b] if b < t.size else t[-1]
+            for ax in axes:
+                ax.axvspan(t[a], t1, color="0.9", lw=0, zorder=0, label=label if ax is axes[0] else None)
+            label = None
+
+
+def _mark_transitions(axes, an: SessionAnalysis, tag: str, row: int) -> None:
+    """Dotted line at each transition's start, numbered above the top panel (one row per session)."""
+    for seg in an.segments:
+        for ax in axes:
+            ax.axvline(seg.t_start, color="0.45", ls=":", lw=0.9)
+        axes[0].annotate(f"{tag}T{seg.index}", xy=(seg.t_start, 1.0),
+                         xycoords=("data", "axes fraction"), xytext=(0, 2 + 10 * row),
+                         textcoords="offset points", fontsize=_FONT["marker"], color="0.3",
+                         ha="center", va="bottom")
+
+
+def _mark_trips(axes, an: SessionAnalysis, tag: str) -> None:
+    for trip in an.trips:
+        try:
+            t = float(trip.get("t"))
+        except (TypeError, ValueError):
+            continue
+        if not math.isfinite(t):
+            continue
+        for ax in axes:
+            ax.axvline(t, color="tab:red", lw=1.4)
+        axes[0].annotate(f"{tag}trip: {trip.get('cause') or 'trip'}", xy=(t, 0.0),
+                         xycoords=("data", "axes fraction"), xytext=(3, 4),
+                         textcoords="offset points", fontsize=_FONT["marker"], color="tab:red",
+                         rotation=90, va="bottom")

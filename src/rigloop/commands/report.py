@@ -1,0 +1,70 @@
+"""``rigloop report SESSION [SESSION2] [--png FILE] [--svg FILE] [--json]``.
+
+Prints the report of a recorded session (docs/reports.md), or the comparison of two sessions
+(B − A). Exit codes: 0 report printed, 2 a session folder or an output file could not be used.
+A failed test plan is part of the report, not an error of the command: it still exits 0.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+from rigloop.cli import EXIT_OK, EXIT_USAGE
+
+NAME = "report"
+HELP = ("summarise a recorded session — transitions, tracking error, actuator effort, loop "
+        "timing, trips, test-plan verdicts — or compare two sessions")
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("session", metavar="SESSION", help="session folder (under recording.dir)")
+    parser.add_argument("session_b", metavar="SESSION2", nargs="?", default=None,
+                        help="a second session: print both side by side with B − A differences")
+    parser.add_argument("--png", metavar="FILE", help="write the figure as a PNG image")
+    parser.add_argument("--svg", metavar="FILE", help="write the figure as an SVG drawing")
+    parser.add_argument("--json", action="store_true",
+                        help="print one JSON object instead of the text report")
+
+
+def run(args: argparse.Namespace) -> int:
+    from rigloop.analysis.report import (
+        analyse, comparison_dict, render_comparison, render_text, to_json,
+    )
+    from rigloop.analysis.session import SessionError, load_session
+
+    for target in (args.png, args.svg):
+        if target and not Path(target).resolve().parent.is_dir():
+            print(f"rigloop report: cannot write the figure to {target}: the folder "
+                  f"{Path(target).resolve().parent} does not exist; create it first",
+                  file=sys.stderr)
+            return EXIT_USAGE
+    paths = [args.session] + ([args.session_b] if args.session_b else [])
+    try:
+        analyses = [analyse(load_session(p)) for p in paths]
+    except SessionError as exc:
+        print(f"rigloop report: {exc}", file=sys.stderr)
+        return EXIT_USAGE
+
+    if args.json:
+        data = analyses[0].as_dict() if len(analyses) == 1 else comparison_dict(*analyses)
+        print(to_json(data))
+    else:
+        text = render_text(analyses[0]) if len(analyses) == 1 else render_comparison(*analyses)
+        print(text, end="")
+
+    if args.png or args.svg:
+        from rigloop.analysis.figures import save_figure
+
+        try:
+            written = save_figure(analyses, png=args.png, svg=args.svg)
+        except OSError as exc:
+            target = getattr(exc, "filename", None) or args.png or args.svg
+            print(f"rigloop report: cannot write the figure to {target} ({exc.strerror or exc}); "
+                  f"check that the folder exists and is writable", file=sys.stderr)
+            return EXIT_USAGE
+        info = sys.stderr if args.json else sys.stdout
+        for path in written:
+            print(f"figure written: {path}", file=info)
+    return EXIT_OK
