@@ -121,6 +121,8 @@ class Engine:
         self._ramp_then: str | None = None
         self.plan = cfg.plan
         self.plan_result: dict | None = None
+        self._stop_check: int | None = None
+        self._last_seq = 0
 
     # ------------------------------------------------------------------ front-end interface
     def request(self, kind: str, **args) -> None:
@@ -421,6 +423,9 @@ class Engine:
                 else [math.nan] * len(self.scales)
             y = values[self.out_idx]
             self._status_bits = s.status
+            self._last_seq = s.seq
+            if self._stop_check is not None and ((s.seq - self._stop_check) & 0xFFFFFFFF) >= 2:
+                self._confirm_stop(t, s.status)
             running = self.state is State.RUNNING
             trip = self.supervisor.check_status(t, s.status, self.state in (State.RUNNING, State.STOPPING)) \
                 or self.supervisor.check_sample(t, values, running)
@@ -482,7 +487,8 @@ class Engine:
                     lateness_ms = (t_sent - (t + self.min_offset)) * 1e3
                 if lateness_ms == lateness_ms:
                     self.lateness_hist.add(max(lateness_ms, 0.0) * 1e-3 + 1e-9)
-                if (late or lateness_ms > self.period * 1e3) and self.state is State.RUNNING:
+                # lockstep: the simulated device waits for the host, so "falling behind" has no meaning
+                if self.realtime and (late or lateness_ms > self.period * 1e3) and self.state is State.RUNNING:
                     trip = self.supervisor.check_overrun(t, t_sent)
                     if trip is not None:
                         self._trip(trip)
@@ -505,6 +511,22 @@ class Engine:
         self.reference = StartFrom(self.reference, y, blend)
         self._emit(EventRecord("profile", f"start blend from {y:.6g} to {r0:.6g} over {blend:g} s", t=self.t_last))
 
+    def _send_stop(self, reason) -> None:
+        """Write STOP to the wire now and remember to check that the device latched it."""
+        from rigloop.protocol.messages import Stop
+
+        self.link.send(Stop(reason))
+        self._stop_check = self._last_seq
+
+    def _confirm_stop(self, t: float, status: int) -> None:
+        from rigloop.protocol.messages import Status
+
+        self._stop_check = None
+        if status & Status.ARMED and not status & Status.STOP_LATCHED:
+            self._emit(EventRecord(
+                "warning", "the device did not latch STOP (still ARMED, no STOP_LATCHED); it may ignore STOP — "
+                "the host keeps commanding the safe value; check the firmware", t=t, value=float(status)))
+
     def _check_run_time(self, t: float, t_rel: float) -> None:
         trip = self.supervisor.check_duration(t, t_rel)
         if trip is not None:
@@ -516,7 +538,7 @@ class Engine:
 
     def _ramp_step(self, t: float) -> float:
         """One step of a ramped stop: down at the actuator slew, then STOP when safe is reached."""
-        from rigloop.protocol.messages import Stop, StopReason
+        from rigloop.protocol.messages import StopReason
 
         dt = t - self.last_cmd_t if self.last_cmd_t is not None else self.period
         step = self.ramp_rate * max(dt, self.period)
@@ -524,7 +546,7 @@ class Engine:
         u = max(u - step, self.safe) if u > self.safe else min(u + step, self.safe)
         if u == self.safe:
             reason = StopReason.TRIP if self.pending_trip is not None else StopReason.OPERATOR
-            self.link.send(Stop(reason))
+            self._send_stop(reason)
             self._emit(EventRecord("stop", "ramped stop complete; STOP sent", t=t))
             if self.pending_trip is not None:
                 self.state = next_state(self.state, "trip")
@@ -555,7 +577,7 @@ class Engine:
 
     def _trip(self, trip: Trip) -> None:
         """Latch a trip. Immediate: STOP goes out now. Ramped: ramp down first, then STOP."""
-        from rigloop.protocol.messages import Stop, StopReason
+        from rigloop.protocol.messages import StopReason
 
         if self.state is State.TRIPPED:
             return
@@ -572,7 +594,7 @@ class Engine:
             return
         reason = StopReason.ESTOP if trip.cause == "e-stop" else StopReason.TRIP
         try:
-            self.link.send(Stop(reason))      # first: the wire
+            self._send_stop(reason)           # first: the wire
         except Exception as exc:  # noqa: BLE001 - a dead link is itself a reason, keep going
             log.error("could not send STOP: %s", exc)
         self.u_cmd = self.safe
@@ -624,7 +646,7 @@ class Engine:
             log.info("request %s refused: %s", req.kind, message)
 
     def _handle_request(self, req: _Request) -> None:
-        from rigloop.protocol.messages import Stop, StopReason
+        from rigloop.protocol.messages import StopReason
 
         k = req.kind
         a = req.args
@@ -632,7 +654,7 @@ class Engine:
             src = a.get("source", self.front_end)
             self._signal_stop = self._signal_stop or bool(a.get("signal"))
             if self.state is State.TRIPPED:
-                self.link.send(Stop(StopReason.ESTOP))
+                self._send_stop(StopReason.ESTOP)
                 self._emit(EventRecord("estop", f"e-stop ({src}) while already tripped; STOP re-sent", t=self.t_last))
             else:
                 self._emit(EventRecord("estop", f"e-stop ({src})", t=self.t_last))
@@ -641,7 +663,7 @@ class Engine:
             self._reply(req, True, "e-stop sent")
         elif k == "stop":
             self._transition("stop")
-            self.link.send(Stop(StopReason.OPERATOR))
+            self._send_stop(StopReason.OPERATOR)
             self.u_cmd = self.safe
             self.shaper.reset(self.safe)
             self._ramp_then = None
@@ -794,7 +816,7 @@ class Engine:
                 self._done = True  # no more rows will come: finish now
         rejected = self.link.counters.rejected.total_rejected
         trip = self.supervisor.check_link(self.t_last, rejected, now)
-        if trip is not None:
+        if trip is not None and self.state is not State.TRIPPED:
             self._emit(EventRecord("link_fault", trip.message, t=self.t_last, value=trip.value, limit=trip.limit))
             self._trip(trip)
         if self.front_end_timeout_s is not None and now - self.last_front_end > self.front_end_timeout_s:

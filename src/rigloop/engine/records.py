@@ -5,7 +5,7 @@ stream, so a live plot and the file on disk can never disagree."""
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Protocol
 
 
