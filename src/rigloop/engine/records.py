@@ -61,7 +61,7 @@ class Trip:
 
     def as_dict(self) -> dict:
         return {
-            "cause": self.cause, "t": _finite_or_none(self.t), "channel": self.channel,
+            "cause": self.cause, "t": None if self.t is None else round(float(self.t), 6), "channel": self.channel,
             "value": _finite_or_none(self.value), "limit": _finite_or_none(self.limit),
             "stop": self.stop, "message": self.message,
         }

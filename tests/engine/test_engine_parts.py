@@ -1,0 +1,148 @@
+"""Unit tests of the engine's parts: the state table, the supervisor, the telemetry ring, the
+status block, the recorder and the flat-memory timing histogram."""
+
+from __future__ import annotations
+
+import math
+import types
+
+import numpy as np
+import pytest
+import yaml
+
+from engine_helpers import fan_config
+from rigloop.engine.records import EventRecord, TickRecord
+from rigloop.engine.recorder import SessionRecorder, make_session_dir
+from rigloop.engine.states import State, TransitionRefused, next_state
+from rigloop.engine.status_block import StatusBlock
+from rigloop.engine.supervisor import Supervisor
+from rigloop.engine.telemetry import TelemetryRing
+from rigloop.engine.timing import LogHistogram
+
+
+def test_state_table_latches_trips_and_reset_never_restarts_motion():
+    s = next_state(State.DISCONNECTED, "connected")
+    assert s is State.IDLE
+    s = next_state(s, "arm")
+    assert s is State.RUNNING
+    s = next_state(s, "trip")
+    assert s is State.TRIPPED
+    with pytest.raises(TransitionRefused, match="reset"):
+        next_state(s, "arm")                      # must reset first
+    assert next_state(s, "reset") is State.IDLE   # reset leads to idle, never to running
+    assert next_state(State.RUNNING, "ramp_down") is State.STOPPING
+    assert next_state(State.STOPPING, "ramped_out") is State.IDLE
+
+
+def _sup(tmp_path, *sets):
+    return Supervisor(fan_config(tmp_path, *sets))
+
+
+def test_supervisor_limits_and_rates(tmp_path):
+    sup = _sup(tmp_path, "limits.speed_rpm.rate_max=1000", "limits.speed_rpm.frozen_s=0.05")
+    vals = [1000.0, 0.1, 30.0, 30.0]
+    assert sup.check_sample(0.0, vals, True) is None
+    trip = sup.check_sample(0.01, [1005.0, 0.1, 30.0, 30.0], True)
+    assert trip is None                             # 500 rpm/s < 1000 rpm/s
+    trip = sup.check_sample(0.02, [1030.0, 0.1, 30.0, 30.0], True)
+    assert trip.cause == "rate-limit" and trip.value == pytest.approx(2500.0)
+    trip = sup.check_sample(0.03, [3400.0, 0.1, 30.0, 30.0], True)
+    assert trip.cause == "limit" and trip.limit == 3300.0 and trip.channel == "speed_rpm"
+    trip = sup.check_sample(0.04, [1000.0, math.nan, 30.0, 30.0], True)
+    assert trip.cause == "non-finite" and trip.channel == "current_a"
+
+
+def test_supervisor_frozen_sensor(tmp_path):
+    sup = _sup(tmp_path, "limits.speed_rpm.frozen_s=0.05")
+    trips = [sup.check_sample(k * 0.01, [1000.0, 0.1, 1.0, 1.0], True) for k in range(8)]
+    first = next(i for i, t in enumerate(trips) if t is not None)
+    assert first == 5 and trips[first].cause == "frozen-sensor"   # 0.05 s after the value stuck
+
+
+def test_supervisor_bursts_and_stale(tmp_path):
+    sup = _sup(tmp_path)
+    assert sup.check_link(0.0, 10, now=0.0) is None                 # 10 rejected: at the limit
+    assert sup.check_link(0.0, 11, now=0.5).cause == "link-errors"  # 11 within 1 s
+    sup2 = _sup(tmp_path)
+    assert sup2.check_link(0.0, 10, now=0.0) is None
+    assert sup2.check_link(0.0, 11, now=2.0) is None                # spread over 2 s: fine
+    assert sup.check_stale(1.0, 0.049) is None
+    assert sup.check_stale(1.0, 0.051).cause == "stale-data"
+
+
+def test_telemetry_ring_wraps_and_reader_keeps_up():
+    ring = TelemetryRing(3, 5, create=True)
+    try:
+        reader = TelemetryRing(0, 0, name=ring.name)
+        for k in range(4):
+            ring.write([k, 2 * k, 3 * k])
+        cur, rows = reader.read_since(0)
+        assert cur == 4 and rows[:, 0].tolist() == [0, 1, 2, 3]
+        for k in range(4, 12):
+            ring.write([k, 0, 0])
+        cur, rows = reader.read_since(cur)
+        # capacity 5: the oldest still intact rows are returned, in order
+        assert cur == 12 and rows[:, 0].tolist() == [8, 9, 10, 11]
+        reader.close()
+    finally:
+        ring.close()
+
+
+def test_status_block_round_trip_and_nan_is_null():
+    block = StatusBlock(create=True)
+    try:
+        assert block.read() is None
+        block.write({"state": "running", "t": math.nan, "n": [1, 2]})
+        other = StatusBlock(block.name)
+        assert other.read() == {"state": "running", "t": None, "n": [1, 2]}
+        other.close()
+    finally:
+        block.close()
+
+
+def test_recorder_writes_while_running_and_closes_cleanly(tmp_path):
+    cfg = fan_config(tmp_path)
+    folder = make_session_dir(tmp_path / "s", cfg.rig)
+    assert make_session_dir(tmp_path / "s", cfg.rig) != folder     # same second: a new folder
+    rec = SessionRecorder(folder, cfg, device_url="sim://fan")
+    meta = yaml.safe_load((folder / "session.yaml").read_text())
+    assert meta["outcome"] == "running" and meta["config"]["rig"] == cfg.rig
+    for k in range(10):
+        rec.on_tick(TickRecord(k * 0.01, k, 1.0, 0.0, 1.5, 0.5, 2.0, 2.0, math.nan, "running",
+                               [1.5, 0.1, 3.0, 25.0], 33, 0.1, 50.0, 0))
+    rec.on_event(EventRecord("param", "control.kp: 4 -> 5", t=0.05, value=5.0))
+    rec.flush()
+    text = (folder / "samples.csv").read_text().splitlines()
+    assert len(text) == 11                                          # header + rows, already on disk
+    assert text[0].split(",")[:9] == ["t", "seq", "ref", "dref", "y", "e", "u_cmd", "u", "f_hat"]
+    rec.close(outcome="completed", stop_reason="duration reached", trip=None, summary={"samples": 10})
+    meta = yaml.safe_load((folder / "session.yaml").read_text())
+    assert meta["outcome"] == "completed" and meta["ended_utc"]
+    arr = np.genfromtxt(folder / "samples.csv", delimiter=",", names=True, dtype=None, encoding="utf-8")
+    assert len(arr) == 10 and np.isnan(arr["f_hat"]).all()
+
+
+def test_recorder_failure_trips_the_rig(tmp_path):
+    """A critical subscriber that fails stops the rig instead of letting it run unrecorded."""
+    from rigloop.engine.loop import Engine
+
+    eng = Engine.__new__(Engine)
+    trips = []
+    eng.subscribers = []
+    eng.t_last = 1.0
+    eng._trip = trips.append
+    broken = types.SimpleNamespace(critical=True)
+    eng.subscribers.append(broken)
+    eng._subscriber_failed(broken, OSError("disk full"))
+    assert trips and trips[0].cause == "recorder-failed" and "disk full" in trips[0].message
+
+
+def test_log_histogram_percentiles_within_resolution():
+    rng = np.random.default_rng(1)
+    x = rng.lognormal(mean=-8, sigma=0.5, size=20000)
+    h = LogHistogram()
+    for v in x:
+        h.add(float(v))
+    for p in (50, 99):
+        assert h.percentile(p) == pytest.approx(np.percentile(x, p), rel=0.03)
+    assert h.counts.nbytes < 10_000                                 # flat memory whatever the count
