@@ -67,5 +67,8 @@ def test_lockstep_fan_run_of_20_s(tmp_path, capsys):
     print(f"engine iP RMS {rms:.2f} rpm, offline oracle RMS {yardstick:.2f} rpm, ratio {rms / yardstick:.3f}")
     assert rms <= 1.1 * yardstick
     # the recorded u is what the device applied: the command of the previous sample, clamped
-    u_cmd = run.u_cmd.to_numpy()
-    assert np.allclose(run.u.to_numpy()[1:], np.clip(u_cmd[:-1], 0, 100).astype(np.float32), atol=1e-5)
+    # (where the host fell behind, one COMMAND answered several samples: skip those pairs)
+    u_cmd, u, late = run.u_cmd.to_numpy(), run.u.to_numpy(), run.late.to_numpy()
+    ok = (late[:-1] == 0) & (late[1:] == 0)
+    assert ok.mean() > 0.95
+    assert np.allclose(u[1:][ok], np.clip(u_cmd[:-1], 0, 100)[ok], atol=1e-4)

@@ -86,7 +86,9 @@ def test_stale_data_when_device_goes_silent(tmp_path):
 
 
 def test_crc_burst_trips_on_link_errors(tmp_path):
-    cfg = fan_config(tmp_path, "device.sim.faults=['corrupt:p=0.5,at=3']")
+    # Half the samples arrive corrupted, so the lockstep device waits for answers that never
+    # come; a generous stale limit makes sure the burst, not the silence, is what trips.
+    cfg = fan_config(tmp_path, "device.sim.faults=['corrupt:p=0.5,at=3']", "limits.stale_periods=500")
     _, s, rx = run_engine(cfg, tmp_path)
     # decided between samples (when the burst is counted): the trip names the last good sample
     assert s.meta["outcome"] == "tripped" and s.trip["cause"] == "link-errors"

@@ -115,6 +115,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                              "then the channels as sent")
     parser.add_argument("--quit-after", metavar="S", type=_number(0, "device seconds", strict=True),
                         default=None, help="exit after this many device seconds")
+    parser.add_argument("--lockstep-wait-ms", metavar="MS", type=_number(0, "milliseconds", strict=True),
+                        default=None, help="lockstep clock: wait this long for the host's answer before "
+                                           "ticking anyway (default: one period)")
     parser.add_argument("--exit-with-parent", action="store_true",
                         help="exit when the process that started this one ends (always on with "
                              "--clock lockstep)")
@@ -192,7 +195,8 @@ def build_from_args(args: argparse.Namespace):
                           noise=args.noise, seed=args.seed, faults=args.fault)
     options = ServerOptions(clock=args.clock, quit_after_s=args.quit_after,
                             exit_with_parent=args.exit_with_parent, rx_log=args.rx_log,
-                            trace=args.trace)
+                            trace=args.trace,
+                            lockstep_wait_s=None if args.lockstep_wait_ms is None else args.lockstep_wait_ms / 1000)
     for option, path in (("--rx-log", args.rx_log), ("--trace", args.trace)):
         if path is not None and not path.parent.is_dir():
             raise _UsageError(f"{option} {path}: folder {str(path.parent)!r} does not exist; "

@@ -16,6 +16,7 @@ from __future__ import annotations
 import logging
 import math
 import queue
+from collections import deque
 import select
 import socket
 import time
@@ -87,7 +88,7 @@ class Engine:
     def __init__(self, cfg, *, out_dir: Path | str | None = None, link=None, autostart: bool = True,
                  duration_s: float | None = None, exit_after_trip: bool = True, record: bool = True,
                  front_end: str = "cli", control_conn=None, front_end_timeout_s: float | None = None,
-                 status_sink=None, sim_extra: dict | None = None):
+                 status_sink=None, sim_extra: dict | None = None, end_when_done: bool = True):
         self.cfg = cfg
         self.out_dir = Path(out_dir) if out_dir is not None else Path(cfg.recording.dir)
         self.link = link
@@ -100,6 +101,7 @@ class Engine:
         self.front_end_timeout_s = front_end_timeout_s
         self.status_sink = status_sink
         self.sim_extra = sim_extra or {}
+        self.end_when_done = end_when_done
         self.subscribers: list = []
         self.state = State.DISCONNECTED
         self._requests: queue.SimpleQueue[_Request] = queue.SimpleQueue()
@@ -115,6 +117,7 @@ class Engine:
         self.sim = None
         self.hello = None
         self.last_reply: dict | None = None
+        self.replies: deque = deque(maxlen=8)     # recent request replies, oldest first
         self._done = False
         self._signal_stop = False
         self._tail_until: float | None = None
@@ -354,6 +357,9 @@ class Engine:
                     pass
             if conn_fd is not None and conn_fd in ready:
                 self._read_front_end()
+                if self.control_conn is None:      # the front end is gone: stop watching its pipe
+                    rfds.remove(conn_fd)
+                    conn_fd = None
             self._drain_requests()
             msgs = link.recv(0.0)
             t_arrival = time.perf_counter()
@@ -534,7 +540,8 @@ class Engine:
             return
         if self.duration_s is not None and t_rel >= self.duration_s and self._ramp_then is None:
             self.stop_reason = "duration reached"
-            self._ramp_down(then="complete")
+            # headless: the session ends; with a front end: back to idle, ready to arm again
+            self._ramp_down(then="complete" if self.end_when_done else "idle")
 
     def _ramp_step(self, t: float) -> float:
         """One step of a ramped stop: down at the actuator slew, then STOP when safe is reached."""
@@ -642,6 +649,7 @@ class Engine:
 
     def _reply(self, req: _Request, ok: bool, message: str) -> None:
         self.last_reply = {"id": req.args.get("id"), "kind": req.kind, "ok": ok, "message": message}
+        self.replies.append(self.last_reply)
         if not ok:
             log.info("request %s refused: %s", req.kind, message)
 
@@ -782,6 +790,8 @@ class Engine:
     # ------------------------------------------------------------------ periodic work
     def _read_front_end(self) -> None:
         conn = self.control_conn
+        if conn is None:
+            return
         try:
             while conn.poll():
                 kind, args = conn.recv()
@@ -882,6 +892,7 @@ class Engine:
             "device_status": self._last_status_bits(),
             "params": {k: getattr(self.params, f) for k, f in TUNABLE_KEYS.items()},
             "reply": self.last_reply,
+            "replies": list(self.replies),
             "rate_hz": self.cfg.device.rate_hz,
             "done": self._done,
         }

@@ -36,7 +36,7 @@ def _engine_main(cfg, conn, ring_name: str, status_name: str, out_dir, options: 
                     exit_after_trip=False, front_end=options.get("front_end", "gui"), control_conn=conn,
                     front_end_timeout_s=options.get("front_end_timeout_s", DEFAULT_FRONT_END_TIMEOUT_S),
                     status_sink=status.write, duration_s=options.get("duration_s"),
-                    sim_extra=options.get("sim_extra"))
+                    sim_extra=options.get("sim_extra"), end_when_done=options.get("end_when_done", False))
     engine.add_subscriber(TelemetryPublisher(ring))
     # A terminal's Ctrl-C reaches every process of the group: treat it as an e-stop, never a crash.
     signal.signal(signal.SIGINT, lambda *_: engine.request("estop", source="SIGINT"))

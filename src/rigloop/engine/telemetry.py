@@ -26,16 +26,15 @@ def ring_fields(channel_names) -> tuple[str, ...]:
 
 
 def _attach(name: str) -> shared_memory.SharedMemory:
+    """Attach to a segment another process created (the creator unlinks it).
+
+    The engine process is started with multiprocessing's spawn context and so shares the
+    creator's resource tracker: registering the name again is harmless and must not be undone
+    here, or the creator's own unlink would confuse the tracker.
+    """
     if sys.version_info >= (3, 13):
         return shared_memory.SharedMemory(name=name, track=False)
-    shm = shared_memory.SharedMemory(name=name)
-    try:  # the creator owns the segment; stop this process's tracker from unlinking it at exit
-        from multiprocessing import resource_tracker
-
-        resource_tracker.unregister(shm._name, "shared_memory")  # type: ignore[attr-defined]
-    except Exception:  # pragma: no cover - best effort on odd platforms
-        pass
-    return shm
+    return shared_memory.SharedMemory(name=name)
 
 
 class TelemetryRing:

@@ -39,6 +39,14 @@ def sim_arguments(cfg: Any, *, rx_log: str | os.PathLike | None = None,
     args = ["--udp", "127.0.0.1:0", "--plant", str(sim.plant), "--clock", str(sim.clock),
             "--rate", repr(float(cfg.device.rate_hz)), "--noise", repr(float(sim.noise)),
             "--seed", str(int(sim.seed)), "--exit-with-parent"]
+    limits = getattr(cfg, "limits", None)
+    if sim.clock == "lockstep" and limits is not None:
+        # Wait for the host's answer up to a third of its stale-data limit, capped at 20 ms and
+        # at least one period: a briefly descheduled host then keeps lockstep exact, and a lost
+        # frame costs little wall time.
+        period_ms = 1000.0 / cfg.device.rate_hz
+        stale_ms = period_ms * limits.stale_periods
+        args += ["--lockstep-wait-ms", repr(max(period_ms, min(stale_ms / 3, 20.0)))]
     if sim.params_file is not None:
         path = Path(sim.params_file)
         if not path.is_absolute():

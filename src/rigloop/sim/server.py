@@ -19,7 +19,9 @@ Clocks:
   ``select()`` on the transport with the tick deadline as timeout. When one or more whole ticks
   were missed the device skips to the newest grid point and flags OVERRUN.
 - ``lockstep`` (protocol §8): the next tick comes as soon as the COMMAND answering the current
-  SAMPLE has arrived, or after one period of wall time. Device time advances by exactly one
+  SAMPLE has arrived, or after the lockstep wait (one period of wall time, or longer when
+  ``--lockstep-wait-ms`` says so: the engine asks for a third of its stale-data limit, so a
+  briefly descheduled host does not turn lockstep into a race). Device time advances by exactly one
   period per tick; messages arriving between ticks carry the time of the current tick. The
   clock stands still at 0 until the first CONFIGURE (the host always configures before it
   runs), so a session sees the same device times, noise and fault times on every run; the
@@ -186,6 +188,7 @@ class ServerOptions:
     exit_with_parent: bool = False
     rx_log: Path | None = None
     trace: Path | None = None
+    lockstep_wait_s: float | None = None    # lockstep: longest wait for an answer (>= one period)
 
 
 class SimServer:
@@ -299,8 +302,13 @@ class SimServer:
             self._tick(self._lock_now)
             self._await_answer()
 
+    def _lockstep_wait_s(self) -> float:
+        period = self.device.period_us * 1e-6
+        return max(period, self.options.lockstep_wait_s or 0.0)
+
     def _await_answer(self) -> None:
-        """Lockstep: wait for the COMMAND answering the last SAMPLE, at most one wall period.
+        """Lockstep: wait for the COMMAND answering the last SAMPLE, at most the lockstep wait
+        (one wall period unless ``lockstep_wait_s`` is longer).
 
         A CONFIGURE restarts the wait (the device then has no SAMPLE awaiting an answer), so
         the first tick after it comes one wall period later: time for the host to finish its
@@ -308,11 +316,11 @@ class SimServer:
         """
         dev = self.device
         generation = dev.configure_count
-        deadline = self._clock() + dev.period_us * 1e-6
+        deadline = self._clock() + self._lockstep_wait_s()
         while self._stop_reason is None:
             if dev.configure_count != generation:
                 generation = dev.configure_count
-                deadline = self._clock() + dev.period_us * 1e-6
+                deadline = self._clock() + self._lockstep_wait_s()
             if dev.answered:
                 return
             remaining = deadline - self._clock()
