@@ -88,7 +88,8 @@ class Engine:
     def __init__(self, cfg, *, out_dir: Path | str | None = None, link=None, autostart: bool = True,
                  duration_s: float | None = None, exit_after_trip: bool = True, record: bool = True,
                  front_end: str = "cli", control_conn=None, front_end_timeout_s: float | None = None,
-                 status_sink=None, sim_extra: dict | None = None, end_when_done: bool = True):
+                 status_sink=None, sim_extra: dict | None = None, end_when_done: bool = True,
+                 open_loop=None):
         self.cfg = cfg
         self.out_dir = Path(out_dir) if out_dir is not None else Path(cfg.recording.dir)
         self.link = link
@@ -102,6 +103,8 @@ class Engine:
         self.status_sink = status_sink
         self.sim_extra = sim_extra or {}
         self.end_when_done = end_when_done
+        #: optional ``f(t_run) -> u``: drive the actuator open loop (bump tests); limits still apply
+        self.open_loop = open_loop
         self.subscribers: list = []
         self.state = State.DISCONNECTED
         self._requests: queue.SimpleQueue[_Request] = queue.SimpleQueue()
@@ -282,6 +285,7 @@ class Engine:
         self.lateness_hist = LogHistogram()
         self.n_samples = 0
         self.n_running = 0
+        self.n_err = 0
         self.sum_e2 = 0.0
         self.max_abs_e = 0.0
         self.late_ticks = 0
@@ -442,21 +446,27 @@ class Engine:
             if state is State.RUNNING:
                 if self.run_t0 is None:
                     self.run_t0 = t
-                    self._start_blend(y)
+                    if self.open_loop is None:
+                        self._start_blend(y)
                 t_rel = t - self.run_t0
-                r, dr, ddr = self.reference.at(t_rel - self.ref_origin)
-                u_req = self.controller.step(y, s.applied, r, dr, ddr)
-                f_hat = self.controller.f_hat
-                e = y - r
+                if self.open_loop is not None:           # bump tests: u from a profile, no law
+                    u_req = self.open_loop(t_rel)
+                else:
+                    r, dr, ddr = self.reference.at(t_rel - self.ref_origin)
+                    u_req = self.controller.step(y, s.applied, r, dr, ddr)
+                    f_hat = self.controller.f_hat
+                    e = y - r
                 trip = self.supervisor.check_output(t, u_req)
                 if trip is not None:
                     self._trip(trip)
                     u_req = self.safe
                 else:
                     self.n_running += 1
-                    self.sum_e2 += e * e
-                    if abs(e) > self.max_abs_e:
-                        self.max_abs_e = abs(e)
+                    if e == e:
+                        self.n_err += 1
+                        self.sum_e2 += e * e
+                        if abs(e) > self.max_abs_e:
+                            self.max_abs_e = abs(e)
                     self._check_run_time(t, t_rel)
             elif state is State.STOPPING:
                 u_req = self.safe
@@ -907,8 +917,8 @@ class Engine:
             "samples": self.n_samples,
             "running_samples": n,
             "duration_s": round(self._t_rel_now(), 6),
-            "rms_error": math.sqrt(self.sum_e2 / n) if n else None,
-            "max_abs_error": self.max_abs_e if n else None,
+            "rms_error": math.sqrt(self.sum_e2 / self.n_err) if self.n_err else None,
+            "max_abs_error": self.max_abs_e if self.n_err else None,
             "lost_samples": c.lost_samples if c else 0,
             "rejected_frames": c.rejected.as_dict() if c else {},
             "late_ticks": self.late_ticks,

@@ -1,0 +1,106 @@
+"""The engine against the C firmware stub built for the host (firmware_stub/ports/host): the
+same protocol, a different implementation of the device side. Over UDP and over a real
+pseudo-terminal (the serial path: COBS framing through pyserial)."""
+
+from __future__ import annotations
+
+import shutil
+import subprocess
+from pathlib import Path
+
+import numpy as np
+import pytest
+import yaml
+
+from engine_helpers import REPO, Session
+
+pytestmark = [pytest.mark.slow, pytest.mark.firmware]
+
+STUB = REPO / "firmware_stub" / "build" / "rl_host_device"
+
+
+@pytest.fixture(scope="module")
+def stub_binary():
+    if shutil.which("make") is None or shutil.which("cc") is None and shutil.which("gcc") is None:
+        pytest.skip("make and a C compiler are needed to build the host port of the firmware stub")
+    subprocess.run(["make", "-C", str(REPO / "firmware_stub"), "host"], check=True, capture_output=True)
+    return STUB
+
+
+def start_stub(binary: Path, *args: str):
+    proc = subprocess.Popen([str(binary), *args, "--gain", "1", "--tau", "0.2", "--quit-after", "120"],
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    line = proc.stdout.readline().strip()           # "UDP 127.0.0.1:PORT" or "PTY /dev/pts/N"
+    assert line.startswith(("UDP ", "PTY ")), line + proc.stderr.read()
+    return proc, line.split(" ", 1)[1]
+
+
+def stub_config(tmp_path: Path, device: dict, limit_max: float = 120.0) -> Path:
+    # The stub's plant: y' = (-y + gain*u)/tau, so alpha = gain/tau = 5 (units/s per unit of u)
+    # and F = -y/tau: the iP must estimate and cancel that term.
+    cfg = {
+        "rig": "c-stub",
+        "device": {**device, "rate_hz": 100, "watchdog_ms": 100},
+        "channels": [{"name": "level", "unit": "V"}, {"name": "u_echo", "unit": "%"}, {"name": "ramp", "unit": "-"}],
+        "actuator": {"name": "drive", "unit": "%", "min": 0, "max": 100, "safe": 0, "slew_per_s": 500},
+        "control": {"output": "level", "law": "iP", "alpha": 5.0, "kp": 8.0,
+                    "estimator": {"kind": "algebraic", "window_s": 0.05}},
+        "reference": {"kind": "levels", "initial": 20.0, "blend_s": 0.5,
+                      "steps": [{"at": 1.5, "to": 50.0}, {"at": 3.0, "to": 35.0}]},
+        "limits": {"level": {"min": -5, "max": limit_max}, "stale_periods": 20},
+        "recording": {"dir": str(tmp_path / "sessions")},
+        "duration_s": 4.5,
+    }
+    path = tmp_path / "stub.yaml"
+    path.write_text(yaml.safe_dump(cfg, sort_keys=False))
+    return path
+
+
+def _run(cfg_path: Path, *sets: str) -> tuple[int, Session]:
+    from rigloop.cli import main
+
+    code = main(["run", str(cfg_path), "--quiet", *[x for s in sets for x in ("--set", s)]])
+    folder = next((cfg_path.parent / "sessions").iterdir())
+    return code, Session(folder)
+
+
+@pytest.mark.parametrize("transport", ["udp", "pty"])
+def test_engine_closes_the_loop_through_the_c_stub(tmp_path, stub_binary, transport):
+    if transport == "udp":
+        proc, addr = start_stub(stub_binary, "--udp", "127.0.0.1:0")
+        host, port = addr.rsplit(":", 1)
+        block = {"link": "udp", "udp": {"host": host, "port": int(port)}}
+    else:
+        proc, path = start_stub(stub_binary, "--pty")
+        block = {"link": "serial", "serial": {"port": path, "baud": 115200}}
+    try:
+        code, s = _run(stub_config(tmp_path, block))
+    finally:
+        proc.terminate()
+        proc.communicate(timeout=10)
+    assert code == 0, s.meta
+    run = s.samples[s.samples.state == "running"]
+    assert s.meta["device"]["hello"]["name"] == "host-stub"
+    # the stub reports as applied exactly the clamped command of the previous sample
+    assert np.allclose(run.u.to_numpy()[1:], run.u_cmd.to_numpy()[:-1], atol=1e-4)
+    assert np.allclose(run.u_echo, run.u, atol=1e-4)
+    # tracking: after each blend the iP holds the level (the stub has no noise)
+    t = run.t - run.t.iloc[0]
+    settled = run[(t > 2.6) & (t < 3.0)]
+    assert np.abs(settled.e).max() < 0.5
+    assert s.meta["summary"]["rejected_frames"]["total_rejected"] == 0
+
+
+def test_limit_trip_stops_the_c_stub(tmp_path, stub_binary):
+    proc, addr = start_stub(stub_binary, "--udp", "127.0.0.1:0")
+    host, port = addr.rsplit(":", 1)
+    try:
+        code, s = _run(stub_config(tmp_path, {"link": "udp", "udp": {"host": host, "port": int(port)}}, limit_max=40))
+    finally:
+        proc.terminate()
+        proc.communicate(timeout=10)
+    assert code == 3 and s.trip["cause"] == "limit"
+    i = int(s.samples.index[s.samples.state == "tripped"][0])
+    assert s.samples.level[i] > 40 and (s.samples.level[:i] <= 40).all()
+    assert (s.samples.u[i + 1:] == 0).all()                     # the stub went safe at once
+    assert (s.samples.status[i + 1:] & 2).all()                 # and latched STOP (docs/protocol.md §4.3)
