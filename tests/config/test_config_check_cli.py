@@ -27,7 +27,7 @@ def test_demo_configs_are_what_they_say(run_cli):
     fan = load_config(CONFIGS / "demo_fan.yaml")
     assert (fan.rig, fan.device.link, fan.device.sim.plant, fan.device.sim.clock) == \
         ("bench-fan", "sim", "fan", "realtime")
-    assert (fan.device.rate_hz, fan.control.law, fan.control.output) == (100.0, "iP", "speed_rpm")
+    assert (fan.device.rate_hz, fan.control.law, fan.control.output) == (500.0, "iP", "speed_rpm")
     assert fan.control.estimator.kind == "algebraic" and len(fan.reference["steps"]) >= 3
     assert fan.channel_names == ("speed_rpm", "current_a", "airflow_m3h", "temp_c")
     motor = load_config(CONFIGS / "demo_motor.yaml")
@@ -45,7 +45,7 @@ def test_check_prints_the_derived_quantities(run_cli):
     for label in ("loop period", "estimator window", "closed-loop time constant",
                   "link device->host", "link host->device", "device watchdog"):
         assert label in out
-    assert "10 samples" in out and "0.25 s" in out
+    assert "30 samples" in out and "0.08333 s" in out       # demo: 60 ms at 500 Hz; 1/Kp = 1/12 s
 
 
 def _check_file(run_cli, write, text: str) -> tuple[int, str]:
