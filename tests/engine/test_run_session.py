@@ -72,3 +72,20 @@ def test_lockstep_fan_run_of_20_s(tmp_path, capsys):
     ok = (late[:-1] == 0) & (late[1:] == 0)
     assert ok.mean() > 0.95
     assert np.allclose(u[1:][ok], np.clip(u_cmd[:-1], 0, 100)[ok], atol=1e-4)
+
+
+def test_a_device_that_never_answers_is_reported_and_recorded(tmp_path, capsys):
+    from rigloop.cli import main
+
+    out = tmp_path / "sessions"
+    # UDP port 9 (discard) on loopback: nothing answers there
+    code = main(["run", str(DEMO_FAN), "--out", str(out), "--quiet",
+                 "--set", "device.link=udp", "--set", "device.udp.port=9"])
+    err = capsys.readouterr().err
+    assert code == 1
+    assert "no HELLO from the device at udp://127.0.0.1:9" in err and "Traceback" not in err
+    folder = next(out.iterdir())
+    meta = yaml.safe_load((folder / "session.yaml").read_text())
+    assert meta["outcome"] == "stopped" and "could not start" in meta["stop_reason"]
+    events = pd.read_csv(folder / "events.csv")
+    assert list(events.kind) == ["link_fault", "ended"]

@@ -129,6 +129,7 @@ class Engine:
         self.plan_result: dict | None = None
         self._stop_check: int | None = None
         self._last_seq = 0
+        self.t_last: float | None = None      # device time of the newest sample (s), None before any
 
     # ------------------------------------------------------------------ front-end interface
     def request(self, kind: str, **args) -> None:
