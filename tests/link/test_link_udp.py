@@ -173,3 +173,36 @@ def test_round_trip_through_a_device_that_echoes_commands(link, device):
     device.sendto(encode_frame(Sample(0, 0, 0, cmd.value, cmd.seq, ())), addr)
     (reply,) = recv_until(link, 1)
     assert reply.applied == 2.5 and reply.last_cmd_seq == 1
+
+
+def test_kernel_receive_stamps_accompany_each_message():
+    """Where the OS stamps datagrams on arrival (Linux), each received message carries the
+    arrival time; the engine measures sample-to-command latency from it."""
+    import socket as _socket
+    import sys
+    import time
+
+    from rigloop.link.udp import UdpLink
+    from rigloop.protocol.framing import encode_frame
+    from rigloop.protocol.messages import Sample
+
+    peer = _socket.socket(_socket.AF_INET, _socket.SOCK_DGRAM)
+    peer.bind(("127.0.0.1", 0))
+    link = UdpLink("127.0.0.1", peer.getsockname()[1])
+    try:
+        before = time.time()
+        for seq in (1, 2):
+            peer.sendto(encode_frame(Sample(seq, 0, 0, 0.0, 0, (1.0,))), link.local_address)
+        msgs, stamps = [], []
+        deadline = time.monotonic() + 5
+        while len(msgs) < 2 and time.monotonic() < deadline:
+            msgs += link.recv(0.5)
+            stamps += link.last_rx_times
+        after = time.time()
+        assert [m.seq for m in msgs] == [1, 2]
+        if sys.platform.startswith("linux"):
+            assert len(stamps) == 2
+            assert all(before - 0.01 <= t <= after + 0.01 for t in stamps)
+    finally:
+        link.close()
+        peer.close()

@@ -374,7 +374,7 @@ class Engine:
                 if host_pacing:
                     pending.extend(samples)
                 else:
-                    self._handle_batch(samples, t_arrival)
+                    self._handle_batch(samples, t_arrival, rx_first=self._kernel_rx(msgs, samples, t_arrival))
             now = time.perf_counter()
             if host_pacing and now >= next_tick:
                 if pending:
@@ -384,6 +384,18 @@ class Engine:
                 if next_tick < now:
                     next_tick = now + self.period
             self._periodic(now)
+
+    def _kernel_rx(self, msgs, samples, t_arrival: float) -> float | None:
+        """When the oldest sample of this batch reached the host's socket (perf_counter clock),
+        from the kernel's receive timestamp where the link offers one; else None."""
+        times = getattr(self.link, "last_rx_times", None)
+        if not times or len(times) != len(msgs):
+            return None
+        first = times[msgs.index(samples[0])]
+        if first <= 0.0:
+            return None
+        t = first - (time.time() - t_arrival)       # wall clock -> perf_counter
+        return t if t <= t_arrival else t_arrival
 
     def _route(self, msgs) -> list:
         from rigloop.protocol.messages import Fault, Hello, Sample
@@ -413,8 +425,16 @@ class Engine:
     def _dev_t(self, t_us: int) -> float:
         return (t_us - self.t0_us) * 1e-6
 
-    def _handle_batch(self, samples, t_arrival: float, deadline: float | None = None) -> None:
-        """Feed every sample to supervisor/estimator/recorder; command once, for the newest."""
+    def _handle_batch(self, samples, t_arrival: float, deadline: float | None = None,
+                      rx_first: float | None = None) -> None:
+        """Feed every sample to supervisor/estimator/recorder; command once, for the newest.
+
+        Timing, per COMMAND: ``latency`` runs from the moment the newest sample reached the host
+        (the kernel's receive stamp where available) to the COMMAND leaving; ``lateness`` is how
+        long the host took to wake for the batch — from the oldest sample's arrival to the loop
+        reading it (or, with host pacing, from the tick's deadline to the COMMAND), the figure a
+        bare sleep loop's wake-up lateness compares with.
+        """
         from rigloop.protocol.messages import Command
 
         n = len(samples)
@@ -489,12 +509,15 @@ class Engine:
                 t_sent = time.perf_counter()
                 self.u_cmd = u_cmd
                 self.last_cmd_t = t
-                latency_ms = (t_sent - t_arrival) * 1e3
+                t_from = rx_first if (rx_first is not None and n == 1) else t_arrival
+                latency_ms = (t_sent - t_from) * 1e3
                 self.lat_hist.add(latency_ms * 1e-3)
                 if deadline is not None:
                     lateness_ms = (t_sent - deadline) * 1e3
                 elif not self.realtime:
                     lateness_ms = math.nan   # lockstep: device time is not wall time
+                elif rx_first is not None:
+                    lateness_ms = (t_arrival - rx_first) * 1e3
                 else:
                     off = t_arrival - t
                     if self.min_offset is None or off < self.min_offset:

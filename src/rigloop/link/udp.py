@@ -10,8 +10,11 @@ from __future__ import annotations
 
 import errno
 import ipaddress
+import platform
 import select
 import socket
+import struct
+import sys
 import time
 
 from rigloop.link.base import LinkCounters, LinkError, SampleFilter
@@ -40,6 +43,35 @@ def _is_loopback(address: str) -> bool:
     return ipaddress.ip_address(address.split("%", 1)[0]).is_loopback
 
 
+_ANC_SIZE = 64
+# Python does not export these on every version; the values are Linux's generic ones
+# (include/uapi/asm-generic/socket.h), valid on x86, ARM and RISC-V.
+_SO_TIMESTAMPNS = getattr(socket, "SO_TIMESTAMPNS", 35 if sys.platform.startswith("linux")
+                          and platform.machine() in ("x86_64", "i686", "aarch64", "armv7l", "armv6l", "riscv64")
+                          else None)
+
+
+def _enable_kernel_timestamps(sock: socket.socket) -> bool:
+    """Ask the kernel to stamp each datagram on arrival (Linux: SO_TIMESTAMPNS). Elsewhere the
+    engine falls back to timing from the moment it reads the datagram."""
+    opt = _SO_TIMESTAMPNS
+    if opt is None or not hasattr(sock, "recvmsg"):
+        return False
+    try:
+        sock.setsockopt(socket.SOL_SOCKET, opt, 1)
+        return True
+    except OSError:
+        return False
+
+
+def _kernel_time(ancdata) -> float:
+    for level, kind, data in ancdata:
+        if level == socket.SOL_SOCKET and kind == _SO_TIMESTAMPNS and len(data) >= 16:
+            sec, nsec = struct.unpack_from("qq", data)
+            return sec + nsec * 1e-9
+    return 0.0
+
+
 class UdpLink:
     """Host end of a UDP device link."""
 
@@ -63,6 +95,7 @@ class UdpLink:
         sock = socket.socket(family, socket.SOCK_DGRAM)
         try:
             sock.setsockopt(socket.SOL_SOCKET, socket.SO_RCVBUF, _RCVBUF)
+            self._kernel_stamps = _enable_kernel_timestamps(sock)
             sock.bind(local_addr)
             sock.setblocking(False)
         except OSError as exc:
@@ -79,6 +112,9 @@ class UdpLink:
         host = f"[{device_addr[0]}]" if family == socket.AF_INET6 else device_addr[0]
         self.url = f"udp://{host}:{device_addr[1]}"
         self._closed = False
+        #: kernel receive times (time.time() clock) of the messages the last recv() returned, in
+        #: the same order; empty where the OS gives none. The engine measures latency from them.
+        self.last_rx_times: list[float] = []
 
     @property
     def local_address(self) -> tuple[str, int]:
@@ -140,14 +176,22 @@ class UdpLink:
 
     def _drain(self) -> list[Message]:
         out: list[Message] = []
+        times: list[float] = []
+        self.last_rx_times = times
         sock = self._sock
         device = self._device
         counters = self.counters
         decode = self._decoder.decode
         keep = self._filter.keep
+        stamps = self._kernel_stamps
+        stamp = 0.0
         for _ in range(_MAX_DRAIN):  # bounded, so a flood cannot hold the loop here
             try:
-                data, addr = sock.recvfrom(_MAX_DATAGRAM)
+                if stamps:
+                    data, anc, _flags, addr = sock.recvmsg(_MAX_DATAGRAM, _ANC_SIZE)
+                    stamp = _kernel_time(anc)
+                else:
+                    data, addr = sock.recvfrom(_MAX_DATAGRAM)
             except (BlockingIOError, InterruptedError):
                 return out
             except (ConnectionRefusedError, ConnectionResetError):
@@ -165,6 +209,8 @@ class UdpLink:
             if msg is not None and keep(msg):
                 counters.rx_frames += 1
                 out.append(msg)
+                if stamps:
+                    times.append(stamp)
         return out
 
     def fileno(self) -> int | None:
