@@ -1,0 +1,301 @@
+"""Stacked, time-linked plots of one session: output and reference, actuator, F estimate, error,
+and any extra channels; with a cross-hair and trip markers.
+
+Redraw cost must not grow with the time window (design §7: 8 traces x 30 s at 1 kHz at 30 fps),
+so every curve clips to the visible range and decimates by peaks (min/max per pixel column,
+which keeps spikes visible, unlike plain subsampling). The same widget shows a live buffer and a
+recorded session; the caller hands it a :class:`rigloop.gui.trace_buffer.TraceBuffer`.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pyqtgraph as pg
+from PyQt6.QtCore import Qt, pyqtSignal
+
+from rigloop.gui import theme
+
+_FIXED = ("output", "actuator", "f_hat", "error")
+#: samples kept per pixel column by the peak decimation
+SAMPLES_PER_PIXEL = 2.0
+#: pen width of traces: 1 px lines take Qt's fast path; wider ones cost ~8x more per frame
+TRACE_WIDTH = 1.0
+
+
+def _pen(colour: str, width: float = TRACE_WIDTH, dashed: bool = False):
+    pen = pg.mkPen(colour, width=min(width, TRACE_WIDTH))
+    if dashed:
+        pen.setStyle(Qt.PenStyle.DashLine)
+    return pen
+
+
+def _legend_html(items: list[tuple[str, str, bool]]) -> str:
+    parts = []
+    for colour, text, dashed in items:
+        mark = "- - " if dashed else "&#9472;&#9472; "
+        parts.append(f"<span style='color:{colour}; font-weight:bold'>{mark}</span>"
+                     f"<span style='color:{theme.TEXT}'>{text}</span>")
+    return "&nbsp;&nbsp;&nbsp;".join(parts)
+
+
+class TracePlots(pg.GraphicsLayoutWidget):
+    """The plot stack. ``hovered(t)`` is emitted when the mouse moves over any plot."""
+
+    hovered = pyqtSignal(float)
+
+    def __init__(self, parent=None):
+        super().__init__(parent)
+        self.setBackground(theme.BG)
+        self.ci.layout.setSpacing(2)
+        self.ci.setContentsMargins(2, 2, 6, 2)
+        self.plots: dict[str, pg.PlotItem] = {}
+        self.curves: dict[str, pg.PlotDataItem] = {}
+        self.columns: dict[str, str] = {}
+        self.cursor_lines: list[pg.InfiniteLine] = []
+        self.markers: list[tuple[float, list[pg.InfiniteLine]]] = []
+        self.static_lines: list[tuple[pg.PlotItem, pg.InfiniteLine]] = []
+        self.extra_names: list[str] = []
+        self._plot_of: dict[str, str] = {}
+        self._y_ranges: dict[str, tuple[float, float]] = {}
+        self._extra_shown = False
+        for row, key in enumerate(_FIXED + ("extra",)):
+            p = pg.PlotItem()
+            p.showGrid(x=True, y=True, alpha=0.22)
+            for side in ("left", "bottom"):
+                # major ticks only: each grid level costs as much to paint as all the traces
+                p.getAxis(side).setStyle(maxTickLevel=0)
+            p.setMenuEnabled(False)
+            p.hideButtons()
+            p.getAxis("left").setWidth(62)
+            p.getAxis("left").setTextPen(theme.MUTED)
+            p.getAxis("bottom").setTextPen(theme.MUTED)
+            p.setMouseEnabled(x=False, y=False)
+            # On the PlotItem, not on each curve: PlotItem.addItem() imposes its own settings
+            # on every curve added to it.
+            p.setDownsampling(auto=True, mode="peak")
+            p.setClipToView(True)
+            p.getViewBox().setAutoVisible(y=True)
+            line = pg.InfiniteLine(angle=90, movable=False, pen=pg.mkPen(theme.TRACE_COLOURS["cursor"], width=1,
+                                                                          style=Qt.PenStyle.DotLine))
+            line.setVisible(False)
+            p.addItem(line, ignoreBounds=True)
+            self.cursor_lines.append(line)
+            self.plots[key] = p
+            if key != "extra":
+                self.ci.addItem(p, row=row, col=0)
+        top = self.plots["output"]
+        for key in ("actuator", "f_hat", "error", "extra"):
+            self.plots[key].setXLink(top)
+        self._mouse_proxy = pg.SignalProxy(self.scene().sigMouseMoved, rateLimit=60, slot=self._on_mouse)
+        self._update_axes()
+
+    # ------------------------------------------------------------------ set-up
+    def configure(self, *, output: str, output_unit: str, actuator: str, actuator_unit: str,
+                  u_min: float, u_max: float, order: int = 1, out_min: float | None = None,
+                  out_max: float | None = None) -> None:
+        """Create the fixed curves for one rig (units in the titles, bounds as dashed lines)."""
+        for name in list(self.curves):
+            self._remove_curve(name)
+        for plot, line in self.static_lines:
+            plot.removeItem(line)
+        self.static_lines = []
+        c = theme.TRACE_COLOURS
+        ou = f" [{output_unit}]" if output_unit else ""
+        au = f" [{actuator_unit}]" if actuator_unit else ""
+        fu = f" [{output_unit}/s{'' if order == 1 else '²'}]" if output_unit else ""
+        self._add_curve("ref", "output", "ref", c["ref"], width=1.3, dashed=True)
+        self._add_curve("y", "output", "y", c["y"], width=1.8)
+        self._add_curve("u", "actuator", "u", c["u"], width=1.3)
+        self._add_curve("u_cmd", "actuator", "u_cmd", c["u_cmd"], width=1.8)
+        self._add_curve("f_hat", "f_hat", "f_hat", c["f_hat"])
+        self._add_curve("e", "error", "e", c["e"])
+        self._title("output", [(c["y"], f"{output} (measured){ou}", False), (c["ref"], "reference", True)]
+                    + ([(c["limit"], "trip limits", True)] if out_min is not None or out_max is not None else []))
+        self._title("actuator", [(c["u_cmd"], f"{actuator} commanded{au}", False),
+                                 (c["u"], "applied (device)", False),
+                                 (c["bound"], f"min {u_min:g} / max {u_max:g}", True)])
+        self._title("f_hat", [(c["f_hat"], f"F estimate{fu}", False)])
+        self._title("error", [(c["e"], f"error e = y - r{ou}", False)])
+        for value in (u_min, u_max):
+            self._static_line("actuator", value, c["bound"])
+        for value in (out_min, out_max):
+            if value is not None:
+                self._static_line("output", value, c["limit"])
+        self.plots["actuator"].disableAutoRange(axis="y")
+        span = (u_max - u_min) or 1.0
+        self.plots["actuator"].setYRange(u_min - 0.06 * span, u_max + 0.06 * span, padding=0)
+        self._y_ranges.clear()
+        self.clear_markers()
+
+    def set_extra_channels(self, names: list[str]) -> None:
+        """Show the ticked channels in the bottom plot (hidden when none is ticked)."""
+        for name in self.extra_names:
+            self._remove_curve(f"ch:{name}")
+        self.extra_names = list(names)
+        items = []
+        for i, name in enumerate(self.extra_names):
+            colour = theme.EXTRA_COLOURS[i % len(theme.EXTRA_COLOURS)]
+            self._add_curve(f"ch:{name}", "extra", f"ch:{name}", colour)
+            items.append((colour, name, False))
+        self._title("extra", items)
+        show = bool(self.extra_names)
+        if show != self._extra_shown:
+            if show:
+                self.ci.addItem(self.plots["extra"], row=len(_FIXED), col=0)
+            else:
+                self.ci.removeItem(self.plots["extra"])
+            self._extra_shown = show
+            self._update_axes()
+
+    def _add_curve(self, name: str, plot: str, column: str, colour: str, width: float = 1.5,
+                   dashed: bool = False) -> None:
+        curve = pg.PlotDataItem(pen=_pen(colour, width, dashed))
+        # ~2 samples per pixel column are enough with peak decimation (min and max of each block)
+        curve.opts["autoDownsampleFactor"] = SAMPLES_PER_PIXEL
+        self.plots[plot].addItem(curve)
+        self._plot_of[name] = plot
+        curve.setDownsampling(auto=True, method="peak")
+        curve.setClipToView(True)
+        self.curves[name] = curve
+        self.columns[name] = column
+
+    def _remove_curve(self, name: str) -> None:
+        curve = self.curves.pop(name, None)
+        self.columns.pop(name, None)
+        if curve is not None:
+            for p in self.plots.values():
+                if curve in p.items:
+                    p.removeItem(curve)
+
+    def _static_line(self, plot: str, value: float, colour: str) -> None:
+        line = pg.InfiniteLine(pos=value, angle=0, movable=False, pen=_pen(colour, 1.0, dashed=True))
+        self.plots[plot].addItem(line, ignoreBounds=True)
+        self.static_lines.append((self.plots[plot], line))
+
+    def _title(self, plot: str, items) -> None:
+        self.plots[plot].setTitle(_legend_html(items), size="9pt", justify="left")
+
+    def _update_axes(self) -> None:
+        order = list(_FIXED) + (["extra"] if self._extra_shown else [])
+        for key in _FIXED + ("extra",):
+            axis = self.plots[key].getAxis("bottom")
+            last = key == order[-1]
+            axis.setStyle(showValues=last)
+            axis.setLabel("device time [s]" if last else None)
+            if not last:
+                axis.showLabel(False)
+
+    # ------------------------------------------------------------------ data
+    def show_rows(self, buf, t_from: float | None = None, t_to: float | None = None,
+                  follow: bool = True) -> None:
+        """Draw the buffer's rows from ``t_from`` (all rows if None); in follow mode pin the
+        x range to [t_from, t_to]. Data are copied: the buffer may move its rows later."""
+        if len(buf) == 0:
+            for curve in self.curves.values():
+                curve.setData([], [])
+            return
+        i0 = max(0, buf.start_of(t_from) - 1) if t_from is not None else 0
+        t = np.array(buf.column("t", i0))
+        per_plot: dict[str, list[np.ndarray]] = {}
+        for name, curve in self.curves.items():
+            col = self.columns[name]
+            if col in buf.index:
+                y = np.array(buf.column(col, i0))
+                curve.setData(t, y)
+                per_plot.setdefault(self._plot_of[name], []).append(y)
+        if follow and t_from is not None and t_to is not None:
+            self.plots["output"].setXRange(t_from, t_to, padding=0)
+            for key, arrays in per_plot.items():
+                if key != "actuator":
+                    self._follow_y(key, arrays)
+
+    def _follow_y(self, key: str, arrays: list[np.ndarray]) -> None:
+        """Fit the y range to the shown data, with hysteresis: the range grows at once when data
+        leave it and shrinks only when the data use less than half of it. A range that moves
+        every frame would redraw the axis every frame (most of the cost of a frame) and jitter."""
+        lo = hi = None
+        for a in arrays:
+            finite = a[np.isfinite(a)]
+            if finite.size:
+                a_lo, a_hi = float(finite.min()), float(finite.max())
+                lo = a_lo if lo is None else min(lo, a_lo)
+                hi = a_hi if hi is None else max(hi, a_hi)
+        if lo is None:
+            return
+        span = hi - lo
+        if span <= 0:
+            span = abs(hi) * 0.1 or 1.0
+        cur = self._y_ranges.get(key)
+        if cur is not None and cur[0] <= lo and hi <= cur[1] and span >= 0.5 * (cur[1] - cur[0]):
+            return
+        new = (lo - 0.1 * span, hi + 0.1 * span)
+        self._y_ranges[key] = new
+        plot = self.plots[key]
+        plot.disableAutoRange(axis="y")
+        plot.setYRange(*new, padding=0)
+
+    def set_interactive(self, on: bool) -> None:
+        """Paused or browsing: the operator may pan and zoom with the mouse."""
+        for p in self.plots.values():
+            p.setMouseEnabled(x=on, y=on)
+
+    def fit_all(self) -> None:
+        self._y_ranges.clear()
+        self.plots["output"].enableAutoRange(axis="x")
+        for key, p in self.plots.items():
+            if key != "actuator":
+                p.enableAutoRange(axis="y")
+
+    # ------------------------------------------------------------------ markers and cursor
+    def add_marker(self, t: float, text: str) -> None:
+        """A trip marker: a red line through every plot, labelled in the top one."""
+        lines = []
+        for key, p in self.plots.items():
+            opts = {}
+            if key == "output":
+                opts = {"label": text, "labelOpts": {"position": 0.88, "color": theme.TRACE_COLOURS["trip"],
+                                                     "fill": (18, 23, 30, 220), "movable": False}}
+            line = pg.InfiniteLine(pos=t, angle=90, movable=False,
+                                   pen=pg.mkPen(theme.TRACE_COLOURS["trip"], width=2), **opts)
+            p.addItem(line, ignoreBounds=True)
+            lines.append(line)
+        self.markers.append((t, lines))
+
+    def clear_markers(self) -> None:
+        for _, lines in self.markers:
+            for line in lines:
+                for p in self.plots.values():
+                    if line in p.items:
+                        p.removeItem(line)
+        self.markers = []
+
+    def prune_markers(self, t_oldest: float) -> None:
+        """Drop markers older than the held data (memory stays flat in long sessions)."""
+        keep = []
+        for t, lines in self.markers:
+            if t < t_oldest:
+                for line in lines:
+                    for p in self.plots.values():
+                        if line in p.items:
+                            p.removeItem(line)
+            else:
+                keep.append((t, lines))
+        self.markers = keep
+
+    def _on_mouse(self, event) -> None:
+        pos = event[0]
+        for p in self.plots.values():
+            if p.scene() is not None and p.sceneBoundingRect().contains(pos):
+                t = p.getViewBox().mapSceneToView(pos).x()
+                for line in self.cursor_lines:
+                    line.setPos(t)
+                    line.setVisible(True)
+                self.hovered.emit(float(t))
+                return
+
+    def move_cursor(self, t: float) -> None:
+        """Place the cross-hair programmatically (keyboard users, tests)."""
+        for line in self.cursor_lines:
+            line.setPos(t)
+            line.setVisible(True)
+        self.hovered.emit(float(t))
