@@ -47,6 +47,7 @@ TUNABLE_KEYS = {
 }
 
 HANDSHAKE_TIMEOUT_S = 5.0
+LOCKSTEP_STALE_FLOOR_S = 0.5   # wall seconds without a sample before a lockstep run trips stale
 TRIP_TAIL_S = 0.25          # headless runs keep recording this long after a trip (safe rows on record)
 
 
@@ -281,6 +282,10 @@ class Engine:
         self.reference = build_reference(self.ref_spec, base_dir=cfg.base_dir)
         self.ref_origin = 0.0
         self.supervisor = Supervisor(cfg)
+        if not self.realtime:
+            # Lockstep: device time is not wall time, and a simulated device descheduled for a
+            # moment on a busy machine is not a dead link. Keep at least LOCKSTEP_STALE_FLOOR_S.
+            self.supervisor.stale_s = max(self.supervisor.stale_s, LOCKSTEP_STALE_FLOOR_S)
         self.lat_hist = LogHistogram()
         self.comp_hist = LogHistogram()
         self.lateness_hist = LogHistogram()

@@ -1,0 +1,289 @@
+"""``rigloop identify CONFIG``: the automatic bump test (docs/reports.md, "Bump test").
+
+Steps the actuator open loop around an operating level — through the engine, so every limit,
+watchdog, the clamp and the slew limit stay active — records the session like any other, then
+estimates alpha, a first-order-plus-dead-time model and the noise, and suggests settings.
+
+Exit codes: 0 done, 1 internal error or estimation failed (the message says why), 2 config or
+usage error (nothing moved), 3 tripped (nothing estimated), 130 stopped by Ctrl-C or SIGTERM.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import signal
+import sys
+from pathlib import Path
+
+from rigloop.commands._common import add_config_arguments, load_config_or_report
+
+NAME = "identify"
+HELP = ("bump test: step the actuator around an operating level (open loop, every limit active), "
+        "estimate alpha and a FOPDT model, suggest gains and an estimator window")
+
+EXIT_OK, EXIT_FAILED, EXIT_USAGE, EXIT_TRIPPED, EXIT_SIGNAL = 0, 1, 2, 3, 130
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    add_config_arguments(parser)
+    parser.add_argument("--at", type=float, metavar="LEVEL",
+                        help="operating level u0 of the actuator (default: the middle of its range; "
+                             "halfway from safe to max when safe is the middle)")
+    parser.add_argument("--step", type=float, metavar="DU",
+                        help="size of the step du (default: 10 %% of the actuator range; negative "
+                             "steps down first); u0 ± du must stay inside the range")
+    parser.add_argument("--settle", type=float, metavar="S",
+                        help="hold at u0 before the first step, s (default 4)")
+    parser.add_argument("--hold", type=float, metavar="S", help="hold after each step, s (default 3)")
+    parser.add_argument("--tau-cl", type=float, metavar="S", dest="tau_cl",
+                        help="wanted closed-loop time constant, s (default: the fitted tau / 5, at "
+                             "least 5 sample periods)")
+    parser.add_argument("--write", metavar="FILE", help="also write the YAML config snippet to FILE")
+    parser.add_argument("--out", metavar="DIR", help="folder for the session recording (overrides recording.dir)")
+    parser.add_argument("--json", action="store_true", help="print one JSON object instead of the text")
+    parser.add_argument("--quiet", action="store_true", help="no live status line (on stderr)")
+
+
+def _usage(message: str) -> int:
+    print(f"rigloop identify: {message}", file=sys.stderr)
+    return EXIT_USAGE
+
+
+def run(args: argparse.Namespace) -> int:
+    from rigloop.analysis.identify import PlanError, plan_bump
+
+    # the bump test replaces any reference or test plan of the config
+    cfg = load_config_or_report(args.config, list(getattr(args, "set", None) or []) + ["plan=null"])
+    if cfg is None:
+        return EXIT_USAGE
+    ts = 1.0 / cfg.device.rate_hz
+    if args.tau_cl is not None and not (math.isfinite(args.tau_cl) and args.tau_cl >= 5 * ts):
+        return _usage(f"--tau-cl {args.tau_cl:g}: must be at least 5 sample periods "
+                      f"({5 * ts:.3g} s at {cfg.device.rate_hz:g} Hz)")
+    if args.write:
+        folder = Path(args.write).resolve().parent
+        if not folder.is_dir():
+            return _usage(f"--write {args.write}: the folder {folder} does not exist; create it first")
+    a = cfg.actuator
+    try:
+        plan = plan_bump(a.min, a.max, a.safe, a.slew_per_s, rate_hz=cfg.device.rate_hz, at=args.at,
+                         step=args.step, settle_s=args.settle, hold_s=args.hold,
+                         max_duration_s=cfg.limits.max_duration_s, unit=a.unit)
+    except PlanError as exc:
+        return _usage(str(exc))
+    return run_bump_test(cfg, plan, tau_cl=args.tau_cl, out_dir=args.out, write=args.write,
+                         as_json=args.json, quiet=args.quiet or args.json)
+
+
+def run_bump_test(cfg, plan, *, tau_cl=None, out_dir=None, write=None, as_json=False, quiet=False,
+                  stream=None) -> int:
+    """Run the profile on the rig through the engine, then estimate, print and record."""
+    from rigloop.engine.console import ConsoleStatus
+    from rigloop.engine.loop import Engine, EngineError
+
+    stream = stream or sys.stdout
+    a = cfg.actuator
+    unit = f" {a.unit}" if a.unit else ""
+    print(f"bump test on {cfg.rig}: {a.name} {plan.safe:g} -> {plan.u0:g}{unit}, step "
+          f"{plan.du:+g}{unit} and back, {plan.duration_s:.3g} s. The rig moves on its own: keep the "
+          "hardwired e-stop within reach (safety.md); Ctrl-C stops at once.", file=sys.stderr)
+    engine = Engine(cfg, out_dir=out_dir, duration_s=plan.duration_s, autostart=True, front_end="cli",
+                    open_loop=plan)
+    console = None
+    if not quiet:
+        console = ConsoleStatus(sys.stderr, output=cfg.control.output, actuator=a.name)
+        engine.add_subscriber(console)
+
+    def on_signal(signum, _frame):
+        name = "Ctrl-C" if signum == signal.SIGINT else "SIGTERM"
+        engine.request("estop", source=name, signal=True)
+
+    old = {s: signal.signal(s, on_signal) for s in (signal.SIGINT, signal.SIGTERM)}
+    try:
+        result = engine.run()
+    except EngineError as exc:
+        print(f"rigloop identify: {exc}", file=sys.stderr)
+        return EXIT_FAILED
+    finally:
+        for s, h in old.items():
+            signal.signal(s, h)
+        if console:
+            console.finish()
+    session = result.session_dir
+    if result.exit_code == EXIT_SIGNAL:
+        print(f"rigloop identify: stopped by the operator ({result.stop_reason}); nothing estimated\n"
+              f"session: {session}", file=sys.stderr)
+        return EXIT_SIGNAL
+    if result.outcome == "tripped":
+        t = result.trip
+        why = f"{t.cause} at t={_g(t.t)} s: {t.message}" if t else result.stop_reason
+        hint = ("Choose an operating level and step (--at, --step) that keep every channel "
+                "inside its limits")
+        if t is not None and t.channel:
+            hint += (f"; if {t.channel} must move that far during the test, widen its limits for "
+                     f"the test (--set limits.{t.channel}.max=...)")
+        print(f"rigloop identify: the rig tripped ({why}); nothing estimated. {hint}.\n"
+              f"session: {session}", file=sys.stderr)
+        _record(session, {"plan": plan.as_dict(), "error": f"tripped: {why}"})
+        return EXIT_TRIPPED
+    if result.outcome != "completed":
+        print(f"rigloop identify: the session ended without completing ({result.outcome}: "
+              f"{result.stop_reason}); nothing estimated\nsession: {session}", file=sys.stderr)
+        return EXIT_FAILED
+    return _estimate_and_report(cfg, plan, session, tau_cl=tau_cl, write=write, as_json=as_json,
+                                stream=stream)
+
+
+def _estimate_and_report(cfg, plan, session, *, tau_cl, write, as_json, stream) -> int:
+    from rigloop.analysis.identify import (
+        EstimationError, PlanError, analyse_bump, config_snippet, suggest_settings,
+    )
+    from rigloop.analysis.session import SessionError, load_session
+
+    try:
+        loaded = load_session(session)
+        rows = loaded.active_mask()
+        t = loaded.column("t", rows)
+        y = loaded.column(cfg.control.output, rows)
+        u = loaded.column("u", rows)
+        if t.size == 0:
+            raise EstimationError("the session holds no running rows")
+        est = analyse_bump(t - t[0], y, u, order=cfg.control.order, plan=plan, ts=cfg.period_s,
+                           output=cfg.control.output)
+        sugg = suggest_settings(est, plan, tau_cl=tau_cl)
+    except (EstimationError, SessionError, PlanError) as exc:
+        print(f"rigloop identify: estimation failed: {exc}\nsession: {session}", file=sys.stderr)
+        _record(session, {"plan": plan.as_dict(), "error": str(exc)})
+        return EXIT_FAILED
+    header = (f"rigloop identify {cfg.rig}: {cfg.control.output} (order {est.order}) around "
+              f"{cfg.actuator.name} = {plan.u0:g}, step {plan.du:+g}; session {Path(session).name}")
+    snippet = config_snippet(sugg, header=header)
+    report = {
+        "session": str(session), "rig": cfg.rig, "output": cfg.control.output,
+        "output_unit": _unit(cfg, cfg.control.output), "actuator": cfg.actuator.name,
+        "actuator_unit": cfg.actuator.unit, "plan": plan.as_dict(), "estimates": est.as_dict(),
+        "suggestions": sugg.as_dict(), "snippet": snippet, "warnings": list(est.warnings),
+        "written": None,
+    }
+    code = EXIT_OK
+    if write:
+        try:
+            Path(write).write_text(snippet, encoding="utf-8")
+            report["written"] = str(write)
+        except OSError as exc:
+            print(f"rigloop identify: could not write {write}: {exc}; the snippet is printed below",
+                  file=sys.stderr)
+            code = EXIT_FAILED
+    _record(session, {k: v for k, v in report.items() if k not in ("session", "written")})
+    if as_json:
+        stream.write(json.dumps(_json_safe(report), indent=2) + "\n")
+    else:
+        stream.write(render_text(cfg, plan, est, sugg, snippet, session, report["written"]))
+    stream.flush()
+    return code
+
+
+def _unit(cfg, channel: str) -> str:
+    for c in cfg.channels:
+        if c.name == channel:
+            return c.unit
+    return ""
+
+
+def _record(session, block: dict) -> None:
+    """Add the ``identify:`` block to the session's session.yaml (never loses the recording)."""
+    if session is None:
+        return
+    import yaml
+
+    from rigloop.engine.recorder import write_yaml_atomic
+
+    path = Path(session) / "session.yaml"
+    try:
+        meta = yaml.safe_load(path.read_text(encoding="utf-8")) or {}
+        meta["identify"] = _json_safe(block)
+        write_yaml_atomic(path, meta)
+    except (OSError, yaml.YAMLError) as exc:
+        print(f"rigloop identify: could not add the results to {path}: {exc}", file=sys.stderr)
+
+
+def _json_safe(x):
+    if isinstance(x, dict):
+        return {str(k): _json_safe(v) for k, v in x.items()}
+    if isinstance(x, (list, tuple)):
+        return [_json_safe(v) for v in x]
+    if isinstance(x, float):
+        return x if math.isfinite(x) else None
+    if hasattr(x, "item"):            # numpy scalars
+        return _json_safe(x.item())
+    return x
+
+
+def _g(x, digits: int = 4) -> str:
+    if x is None or (isinstance(x, float) and not math.isfinite(x)):
+        return "n/a"
+    return f"{x:.{digits}g}"
+
+
+def render_text(cfg, plan, est, sugg, snippet: str, session, written) -> str:
+    """The human-readable summary: what was done, each estimate with its unit, the suggestions."""
+    from rigloop.analysis.identify import NOISE_FRACTION
+
+    a = cfg.actuator
+    y_unit = _unit(cfg, cfg.control.output)
+    m = est.order
+    yu, au = y_unit or "unit", a.unit or "unit"
+    base = f"({yu})" if "/" in yu else yu
+    rate_unit = f"{base}/s" if m == 1 else f"{base}/s²"
+    gain_unit = f"{yu} per {au}" if m == 1 else f"{base}/s per {au}"
+    out = []
+    w = out.append
+    w(f"Bump test of {cfg.rig}: {cfg.control.output} (model order {m}) driven by {a.name}\n")
+    w(f"  session   {session}\n")
+    slew = (f"slew-limited at {plan.slew_per_s:g} {au}/s ({plan.slew_time_s:.3g} s per step)"
+            if plan.slew_per_s else "no slew limit")
+    w(f"  profile   ramp {plan.safe:g} -> {plan.u0:g} {au} ({plan.t_ramp:.3g} s), hold {plan.settle_s:g} s, "
+      f"step {plan.du:+g} {au}, hold {plan.hold_s:g} s, back to {plan.u0:g}, hold {plan.hold_s:g} s; {slew}\n")
+    w(f"  sample period {est.ts * 1000:.4g} ms\n\n")
+    w("Estimates                                   up          down        mean\n")
+    up, dn = (est.steps + [None, None])[:2]
+
+    def row(label, attr, mean, unit):
+        vals = [getattr(s, attr) if s is not None and s.responded else None for s in (up, dn)]
+        w(f"  {label:<40} {_g(vals[0]):>10}  {_g(vals[1]):>10}  {_g(mean):>10}  {unit}\n")
+
+    row("alpha (initial slope per unit du)", "alpha", est.alpha, f"{rate_unit} per {au}")
+    row("  without the drift correction", "alpha_uncorrected", None, f"{rate_unit} per {au}")
+    row("gain K" + (" of the rate (output integrates)" if m == 2 else ""), "gain", est.gain, gain_unit)
+    row("time constant tau", "tau", est.tau, "s")
+    row("dead time theta", "theta", est.theta, "s")
+    row("FOPDT fit residual (RMS)", "fit_rms", None, yu)
+    row("slope window after the step", "window_s", None, "s")
+    w(f"  {'alpha implied by the fit, K/tau':<40} {'':>10}  {'':>10}  {_g(est.alpha_fopdt):>10}  "
+      f"{rate_unit} per {au}\n")
+    w(f"  {'noise (std of y, detrended, first hold)':<40} {'':>10}  {'':>10}  {_g(est.noise_std):>10}  {yu}\n")
+    if m == 2:
+        w("  (an integrating output has no static gain: K and tau describe its rate)\n")
+    w(f"\nSuggestions for the model-free law ({sugg.law})\n")
+    w(f"  alpha     {_g(sugg.alpha)} {rate_unit} per {au}\n")
+    if m == 1:
+        w(f"  kp        {_g(sugg.kp)} 1/s   closed-loop time constant {_g(sugg.tau_cl, 3)} s ({sugg.tau_cl_rule})\n")
+    else:
+        w(f"  kp, kd    {_g(sugg.kp)} 1/s², {_g(sugg.kd)} 1/s   omega = 1/tau_cl = {_g(1 / sugg.tau_cl, 3)} "
+          f"rad/s, zeta = 1 (tau_cl {_g(sugg.tau_cl, 3)} s, {sugg.tau_cl_rule})\n")
+    w(f"  window_s  {_g(sugg.window_s)} s ({sugg.window_samples} samples): F noise about "
+      f"{_g(sugg.sigma_f, 3)} {rate_unit}, target {_g(sugg.sigma_f_target, 3)} "
+      f"({100 * NOISE_FRACTION:g} % of |alpha du|)\n")
+    w(f"PID baseline (SIMC rules, tau_c = {_g(sugg.pid_tau_c, 3)} s, theta with sampling "
+      f"{_g(sugg.pid_theta, 3)} s)\n")
+    w(f"  kp {_g(sugg.pid_kp)}  ki {_g(sugg.pid_ki)}  kd {_g(sugg.pid_kd)}  pid_u0 {_g(sugg.pid_u0)}\n")
+    notes = list(est.warnings) + list(sugg.notes)
+    if notes:
+        w("\nNotes\n")
+        for n in notes:
+            w(f"  - {n}\n")
+    w("\nConfig snippet" + (f" (written to {written})" if written else "") + ":\n\n")
+    w(snippet)
+    return "".join(out)
