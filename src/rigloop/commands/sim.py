@@ -13,7 +13,7 @@ import sys
 from pathlib import Path
 
 NAME = "sim"
-HELP = "Run the simulated device (fan or motor model) on UDP or a pseudo-terminal serial port."
+HELP = "run the simulated device (fan or motor model) on UDP or a pseudo-terminal serial port"
 
 EXIT_OK, EXIT_USAGE = 0, 2
 DEFAULT_UDP = "127.0.0.1:47800"
