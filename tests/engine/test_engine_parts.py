@@ -145,4 +145,4 @@ def test_log_histogram_percentiles_within_resolution():
         h.add(float(v))
     for p in (50, 99):
         assert h.percentile(p) == pytest.approx(np.percentile(x, p), rel=0.03)
-    assert h.counts.nbytes < 10_000                                 # flat memory whatever the count
+    assert len(h.counts) == h.n_bins < 1000                         # flat memory whatever the count

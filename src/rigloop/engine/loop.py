@@ -24,6 +24,19 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from rigloop.engine.records import EventRecord, TickRecord, Trip
+from rigloop.protocol.messages import (
+    PROTOCOL_VERSION,
+    Arm,
+    Command,
+    Configure,
+    Fault,
+    Hello,
+    Query,
+    Sample,
+    Status,
+    Stop,
+    StopReason,
+)
 from rigloop.engine.recorder import SessionRecorder, make_session_dir, utc_now_iso
 from rigloop.engine.states import State, TransitionRefused, next_state
 from rigloop.engine.supervisor import Supervisor
@@ -48,6 +61,8 @@ TUNABLE_KEYS = {
 
 HANDSHAKE_TIMEOUT_S = 5.0
 LOCKSTEP_STALE_FLOOR_S = 0.5   # wall seconds without a sample before a lockstep run trips stale
+ARMED = int(Status.ARMED)      # plain ints on the hot path (IntFlag arithmetic is slow)
+STOP_LATCHED = int(Status.STOP_LATCHED)
 TRIP_TAIL_S = 0.25          # headless runs keep recording this long after a trip (safe rows on record)
 
 
@@ -131,6 +146,9 @@ class Engine:
         self._stop_check: int | None = None
         self._last_seq = 0
         self.t_last: float | None = None      # device time of the newest sample (s), None before any
+        self._armed_seen = False
+        self._arm_wait = 0
+        self._wall_minus_perf = time.time() - time.perf_counter()
 
     # ------------------------------------------------------------------ front-end interface
     def request(self, kind: str, **args) -> None:
@@ -173,7 +191,6 @@ class Engine:
         return self.link.url
 
     def _handshake(self) -> None:
-        from rigloop.protocol.messages import PROTOCOL_VERSION, Configure, Hello, Query
 
         cfg = self.cfg
         link = self.link
@@ -373,6 +390,7 @@ class Engine:
             self._drain_requests()
             msgs = link.recv(0.0)
             t_arrival = time.perf_counter()
+            self._wall_minus_perf = time.time() - t_arrival
             samples = self._route(msgs)
             if samples:
                 self.last_sample_host = t_arrival
@@ -399,11 +417,10 @@ class Engine:
         first = times[msgs.index(samples[0])]
         if first <= 0.0:
             return None
-        t = first - (time.time() - t_arrival)       # wall clock -> perf_counter
+        t = first - self._wall_minus_perf           # wall clock -> perf_counter
         return t if t <= t_arrival else t_arrival
 
     def _route(self, msgs) -> list:
-        from rigloop.protocol.messages import Fault, Hello, Sample
 
         samples = []
         for m in msgs:
@@ -440,7 +457,6 @@ class Engine:
         reading it (or, with host pacing, from the tick's deadline to the COMMAND), the figure a
         bare sleep loop's wake-up lateness compares with.
         """
-        from rigloop.protocol.messages import Command
 
         n = len(samples)
         late = n - 1
@@ -463,7 +479,8 @@ class Engine:
             if self._stop_check is not None and ((s.seq - self._stop_check) & 0xFFFFFFFF) >= 2:
                 self._confirm_stop(t, s.status)
             running = self.state is State.RUNNING
-            trip = self.supervisor.check_status(t, s.status, self.state in (State.RUNNING, State.STOPPING)) \
+            trip = self._check_arm_confirmed(t, s.status) \
+                or self.supervisor.check_status(t, s.status, self._armed_seen and self.state in (State.RUNNING, State.STOPPING)) \
                 or self.supervisor.check_sample(t, values, running)
             if trip is not None:
                 self._trip(trip)
@@ -558,19 +575,33 @@ class Engine:
 
     def _send_stop(self, reason) -> None:
         """Write STOP to the wire now and remember to check that the device latched it."""
-        from rigloop.protocol.messages import Stop
 
         self.link.send(Stop(reason))
         self._stop_check = self._last_seq
 
     def _confirm_stop(self, t: float, status: int) -> None:
-        from rigloop.protocol.messages import Status
 
         self._stop_check = None
-        if status & Status.ARMED and not status & Status.STOP_LATCHED:
+        if status & ARMED and not status & STOP_LATCHED:
             self._emit(EventRecord(
                 "warning", "the device did not latch STOP (still ARMED, no STOP_LATCHED); it may ignore STOP — "
                 "the host keeps commanding the safe value; check the firmware", t=t, value=float(status)))
+
+    def _check_arm_confirmed(self, t: float, status: int) -> Trip | None:
+        """After ARM, samples already on their way still carry the old latched bits (a WATCHDOG
+        from an earlier session, say): judge the device's status only once it shows ARMED, and
+        trip if it never does."""
+        if self._armed_seen or self.state is not State.RUNNING:
+            return None
+        if status & ARMED:
+            self._armed_seen = True
+            return None
+        self._arm_wait += 1
+        if self._arm_wait > max(self.cfg.limits.stale_periods, 10):
+            return Trip("device-fault", f"the device did not confirm ARM within {self._arm_wait} samples "
+                                        f"(status 0x{status:02x}); check its firmware and latches", t=t,
+                        value=float(status))
+        return None
 
     def _check_run_time(self, t: float, t_rel: float) -> None:
         trip = self.supervisor.check_duration(t, t_rel)
@@ -584,7 +615,6 @@ class Engine:
 
     def _ramp_step(self, t: float) -> float:
         """One step of a ramped stop: down at the actuator slew, then STOP when safe is reached."""
-        from rigloop.protocol.messages import StopReason
 
         dt = t - self.last_cmd_t if self.last_cmd_t is not None else self.period
         step = self.ramp_rate * max(dt, self.period)
@@ -623,7 +653,6 @@ class Engine:
 
     def _trip(self, trip: Trip) -> None:
         """Latch a trip. Immediate: STOP goes out now. Ramped: ramp down first, then STOP."""
-        from rigloop.protocol.messages import StopReason
 
         if self.state is State.TRIPPED:
             return
@@ -665,10 +694,11 @@ class Engine:
                 self.outcome = "completed"
 
     def _arm(self, source: str) -> None:
-        from rigloop.protocol.messages import Arm
 
         self._transition("arm")
         self.link.send(Arm())
+        self._armed_seen = False
+        self._arm_wait = 0
         self.controller.reset(self.safe)
         self.shaper.reset(self.safe)
         self.run_t0 = None
@@ -693,7 +723,6 @@ class Engine:
             log.info("request %s refused: %s", req.kind, message)
 
     def _handle_request(self, req: _Request) -> None:
-        from rigloop.protocol.messages import StopReason
 
         k = req.kind
         a = req.args
@@ -704,8 +733,8 @@ class Engine:
                 self._send_stop(StopReason.ESTOP)
                 self._emit(EventRecord("estop", f"e-stop ({src}) while already tripped; STOP re-sent", t=self.t_last))
             else:
+                self._trip(Trip("e-stop", f"operator e-stop ({src})", t=self.t_last))   # the wire first
                 self._emit(EventRecord("estop", f"e-stop ({src})", t=self.t_last))
-                self._trip(Trip("e-stop", f"operator e-stop ({src})", t=self.t_last))
             self.stop_reason = self.stop_reason or f"operator e-stop ({src})"
             self._reply(req, True, "e-stop sent")
         elif k == "stop":

@@ -16,7 +16,7 @@ class LogHistogram:
         self.log_lo = math.log10(lo)
         self.k = bins_per_decade
         self.n_bins = int(math.ceil((math.log10(hi) - self.log_lo) * bins_per_decade)) + 2
-        self.counts = np.zeros(self.n_bins, dtype=np.int64)
+        self.counts = [0] * self.n_bins       # a list: += on one numpy item costs far more
         self.n = 0
         self.max = -math.inf
 
@@ -38,7 +38,7 @@ class LogHistogram:
         if self.n == 0:
             return math.nan
         target = p / 100.0 * self.n
-        cum = np.cumsum(self.counts)
+        cum = np.cumsum(np.asarray(self.counts, dtype=np.int64))
         i = int(np.searchsorted(cum, target, side="left"))
         if i == 0:
             return self.lo
