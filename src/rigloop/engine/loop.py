@@ -23,15 +23,13 @@ import time
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from rigloop.engine.handshake import EngineError, handshake
 from rigloop.engine.records import EventRecord, TickRecord, Trip
 from rigloop.protocol.messages import (
-    PROTOCOL_VERSION,
     Arm,
     Command,
-    Configure,
     Fault,
     Hello,
-    Query,
     Sample,
     Status,
     Stop,
@@ -41,33 +39,14 @@ from rigloop.engine.recorder import SessionRecorder, make_session_dir, utc_now_i
 from rigloop.engine.states import State, TransitionRefused, next_state
 from rigloop.engine.supervisor import Supervisor
 from rigloop.engine.timing import LogHistogram
+from rigloop.engine.tunables import TUNABLE_KEYS, control_params_from_config
 
 log = logging.getLogger("rigloop.engine")
 
-#: Parameters a front end may change while running (config key path -> ControlParams field).
-TUNABLE_KEYS = {
-    "control.law": "law",
-    "control.order": "order",
-    "control.alpha": "alpha",
-    "control.kp": "kp",
-    "control.ki": "ki",
-    "control.kd": "kd",
-    "control.anti_windup": "anti_windup",
-    "control.pid_u0": "pid_u0",
-    "control.estimator.kind": "estimator",
-    "control.estimator.window_s": "window_s",
-    "control.derivative_window_s": "derivative_window_s",
-}
-
-HANDSHAKE_TIMEOUT_S = 5.0
 LOCKSTEP_STALE_FLOOR_S = 0.5   # wall seconds without a sample before a lockstep run trips stale
 ARMED = int(Status.ARMED)      # plain ints on the hot path (IntFlag arithmetic is slow)
 STOP_LATCHED = int(Status.STOP_LATCHED)
 TRIP_TAIL_S = 0.25          # headless runs keep recording this long after a trip (safe rows on record)
-
-
-class EngineError(Exception):
-    """A failure before anything moved (cannot connect, device mismatch)."""
 
 
 @dataclass
@@ -85,17 +64,6 @@ class RunResult:
 class _Request:
     kind: str
     args: dict = field(default_factory=dict)
-
-
-def control_params_from_config(cfg):
-    from rigloop.control.controller import ControlParams
-
-    c = cfg.control
-    return ControlParams(
-        law=c.law, order=c.order, alpha=c.alpha, kp=c.kp, ki=c.ki, kd=c.kd,
-        estimator=c.estimator.kind, window_s=c.estimator.window_s,
-        derivative_window_s=c.derivative_window_s, anti_windup=c.anti_windup, pid_u0=c.pid_u0,
-    )
 
 
 class Engine:
@@ -191,59 +159,13 @@ class Engine:
         return self.link.url
 
     def _handshake(self) -> None:
-
-        cfg = self.cfg
-        link = self.link
-        deadline = time.monotonic() + HANDSHAKE_TIMEOUT_S
-        hello = None
-        next_query = 0.0
-        while hello is None:
-            now = time.monotonic()
-            if now > deadline:
-                raise EngineError(f"no HELLO from the device at {link.url} within {HANDSHAKE_TIMEOUT_S:.0f} s; "
-                                  "check the cable/port, the device's power and its firmware")
-            if now >= next_query:
-                link.send(Query())
-                next_query = now + 0.5
-            for m in link.recv(0.1):
-                if isinstance(m, Hello):
-                    hello = m
-        if not hello.proto_min <= PROTOCOL_VERSION <= hello.proto_max:
-            raise EngineError(f"protocol mismatch: the host speaks version {PROTOCOL_VERSION}, the device "
-                              f"speaks {hello.proto_min}..{hello.proto_max}; update the firmware or rigloop")
-        if hello.n_channels != len(cfg.channels):
-            raise EngineError(f"the device sends {hello.n_channels} channels but the config lists "
-                              f"{len(cfg.channels)} (channels: {', '.join(c.name for c in cfg.channels)}); "
-                              "make the channels list match the firmware")
-        period_us = int(round(1e6 / cfg.device.rate_hz))
-        watchdog_us = int(round(cfg.device.watchdog_ms * 1000))
-        a = cfg.actuator
-        conf = Configure(period_us, watchdog_us, float(a.safe), float(a.min), float(a.max))
-        deadline = time.monotonic() + HANDSHAKE_TIMEOUT_S
-        acked = None
-        next_send = 0.0
-        while acked is None:
-            now = time.monotonic()
-            if now > deadline:
-                raise EngineError(f"the device at {link.url} did not acknowledge CONFIGURE "
-                                  f"(period {period_us} us, watchdog {watchdog_us} us) within "
-                                  f"{HANDSHAKE_TIMEOUT_S:.0f} s; check that it supports that rate")
-            if now >= next_send:
-                link.send(conf)
-                next_send = now + 1.0
-            for m in link.recv(0.1):
-                if isinstance(m, Hello) and m.period_us == period_us and m.watchdog_us == watchdog_us:
-                    acked = m
-                elif type(m).__name__ == "Fault" and getattr(m, "code", 0) == 4:
-                    raise EngineError(f"the device rejected CONFIGURE (period {period_us} us, watchdog "
-                                      f"{watchdog_us} us, actuator {a.min}..{a.max} safe {a.safe})")
-        self.hello = acked
-        info = {"fw_version": acked.fw_version, "n_channels": acked.n_channels, "period_us": acked.period_us,
-                "watchdog_us": acked.watchdog_us, "safe": acked.safe, "u_min": acked.u_min,
-                "u_max": acked.u_max, "name": acked.name}
+        self.hello = handshake(self.link, self.cfg)
+        h = self.hello
+        info = {"fw_version": h.fw_version, "n_channels": h.n_channels, "period_us": h.period_us,
+                "watchdog_us": h.watchdog_us, "safe": h.safe, "u_min": h.u_min, "u_max": h.u_max, "name": h.name}
         if self.recorder:
             self.recorder.set_device_hello(info)
-        log.info("device %r configured: %s", acked.name, info)
+        log.info("device %r configured: %s", h.name, info)
 
     # ------------------------------------------------------------------ main entry
     def run(self) -> RunResult:

@@ -14,7 +14,7 @@ from dataclasses import dataclass
 
 from rigloop.config.schema import KEYS, LAWS, ORDER_OF_LAW, Choice
 
-#: Keys the tuning panel edits (a subset of rigloop.engine.loop.TUNABLE_KEYS).
+#: Keys the tuning panel edits (a subset of rigloop.engine.tunables.TUNABLE_KEYS).
 TUNING_KEYS = (
     "control.law", "control.alpha", "control.kp", "control.ki", "control.kd",
     "control.estimator.kind", "control.estimator.window_s", "control.derivative_window_s",
