@@ -19,6 +19,7 @@ import queue
 from collections import deque
 import select
 import socket
+import sys
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -281,7 +282,10 @@ class Engine:
         link_fd = link.fileno() if hasattr(link, "fileno") else None
         wake_fd = self._wake_r.fileno()
         conn = self.control_conn
-        conn_fd = conn.fileno() if conn is not None else None
+        # select() takes sockets everywhere but pipes and serial handles only on POSIX: on
+        # Windows the front end's pipe is polled and the loop wakes at least every millisecond.
+        poll_conn = conn is not None and sys.platform == "win32"
+        conn_fd = conn.fileno() if conn is not None and not poll_conn else None
         host_pacing = self.cfg.device.pacing == "host"
         next_tick = time.perf_counter() + self.period
         pending: list = []
@@ -292,7 +296,7 @@ class Engine:
             timeout = max(0.0, min(0.05, self.last_sample_host + stale_s - now + 1e-4))
             if host_pacing:
                 timeout = max(0.0, min(timeout, next_tick - now))
-            if link_fd is None:
+            if link_fd is None or poll_conn:
                 timeout = min(timeout, 0.001)
             try:
                 ready, _, _ = select.select(rfds, [], [], timeout)
@@ -304,9 +308,9 @@ class Engine:
                         pass
                 except (BlockingIOError, InterruptedError):
                     pass
-            if conn_fd is not None and conn_fd in ready:
+            if (conn_fd is not None and conn_fd in ready) or (poll_conn and self.control_conn is not None):
                 self._read_front_end()
-                if self.control_conn is None:      # the front end is gone: stop watching its pipe
+                if self.control_conn is None and conn_fd is not None:   # front end gone: stop watching
                     rfds.remove(conn_fd)
                     conn_fd = None
             self._drain_requests()
