@@ -25,7 +25,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from rigloop.engine.handshake import EngineError, handshake
-from rigloop.engine.records import EventRecord, TickRecord, Trip
+from rigloop.engine.records import EventRecord, TickRecord, Trip, finite_or_none
 from rigloop.protocol.messages import (
     Arm,
     Command,
@@ -71,7 +71,7 @@ class Engine:
     """One session on one device. Build it, optionally add subscribers, call :meth:`run`."""
 
     def __init__(self, cfg, *, out_dir: Path | str | None = None, link=None, autostart: bool = True,
-                 duration_s: float | None = None, exit_after_trip: bool = True, record: bool = True,
+                 duration_s: float | None = None, exit_after_trip: bool = True,
                  front_end: str = "cli", control_conn=None, front_end_timeout_s: float | None = None,
                  status_sink=None, sim_extra: dict | None = None, end_when_done: bool = True,
                  open_loop=None):
@@ -79,9 +79,9 @@ class Engine:
         self.out_dir = Path(out_dir) if out_dir is not None else Path(cfg.recording.dir)
         self.link = link
         self.autostart = autostart
+        self._duration_given = duration_s is not None      # an explicit length beats a plan's own
         self.duration_s = duration_s if duration_s is not None else cfg.duration_s
         self.exit_after_trip = exit_after_trip
-        self.record = record
         self.front_end = front_end
         self.control_conn = control_conn
         self.front_end_timeout_s = front_end_timeout_s
@@ -96,6 +96,7 @@ class Engine:
         self._wake_r, self._wake_w = socket.socketpair()
         self._wake_r.setblocking(False)
         self._wake_w.setblocking(False)
+        self._log_handler: logging.Handler | None = None
         self.trip: Trip | None = None
         self.pending_trip: Trip | None = None
         self.stop_reason = ""
@@ -117,6 +118,7 @@ class Engine:
         self.t_last: float | None = None      # device time of the newest sample (s), None before any
         self._armed_seen = False
         self._arm_wait = 0
+        self._status_bits = 0                 # the device's status in its newest sample
         self._wall_minus_perf = time.time() - time.perf_counter()
 
     # ------------------------------------------------------------------ front-end interface
@@ -176,14 +178,12 @@ class Engine:
         from rigloop.engine.priority import raise_priority
 
         cfg = self.cfg
-        if self.record:
-            self._setup_session()
+        self._setup_session()
         url = "?"
         try:
             url = self._open_link()
-            if self.record:
-                self.recorder = SessionRecorder(self.session_dir, cfg, device_url=url)
-                self.subscribers.insert(0, self.recorder)
+            self.recorder = SessionRecorder(self.session_dir, cfg, device_url=url)
+            self.subscribers.insert(0, self.recorder)
             realtime = not (cfg.device.link == "sim" and cfg.device.sim.clock == "lockstep")
             self.realtime = realtime
             log.info("rigloop engine for rig %r, link %s, %g Hz, pacing %s", cfg.rig, url,
@@ -201,7 +201,6 @@ class Engine:
             raise EngineError(msg) from exc
 
         self.period = 1.0 / cfg.device.rate_hz
-        self.channel_names = [c.name for c in cfg.channels]
         self.scales = [(c.scale, c.offset) for c in cfg.channels]
         self.out_idx = cfg.channel_index(cfg.control.output)
         a = cfg.actuator
@@ -215,7 +214,7 @@ class Engine:
             from rigloop.analysis.plan import plan_duration, plan_reference_spec
 
             self.ref_spec = plan_reference_spec(self.plan)
-            if self.duration_s is None or cfg.raw.get("duration_s") == self.duration_s:
+            if not self._duration_given:
                 self.duration_s = plan_duration(self.plan)
         else:
             self.ref_spec = cfg.reference
@@ -347,7 +346,6 @@ class Engine:
         return t if t <= t_arrival else t_arrival
 
     def _route(self, msgs) -> list:
-
         samples = []
         for m in msgs:
             if isinstance(m, Sample):
@@ -437,8 +435,6 @@ class Engine:
                         if abs(e) > self.max_abs_e:
                             self.max_abs_e = abs(e)
                     self._check_run_time(t, t_rel)
-            elif state is State.STOPPING:
-                u_req = self.safe
             else:
                 u_req = self.safe
             latency_ms = math.nan
@@ -506,7 +502,6 @@ class Engine:
         self._stop_check = self._last_seq
 
     def _confirm_stop(self, t: float, status: int) -> None:
-
         self._stop_check = None
         if status & ARMED and not status & STOP_LATCHED:
             self._emit(EventRecord(
@@ -620,7 +615,6 @@ class Engine:
                 self.outcome = "completed"
 
     def _arm(self, source: str) -> None:
-
         self._transition("arm")
         self.link.send(Arm())
         self._armed_seen = False
@@ -649,7 +643,6 @@ class Engine:
             log.info("request %s refused: %s", req.kind, message)
 
     def _handle_request(self, req: _Request) -> None:
-
         k = req.kind
         a = req.args
         if k == "estop":
@@ -683,7 +676,6 @@ class Engine:
             self._reply(req, True, "armed")
         elif k == "reset":
             self._transition("reset")
-            self.trip_cleared = self.trip
             self._emit(EventRecord("reset", "trip reset by the operator; output stays safe until armed", t=self.t_last))
             self._tail_until = None
             self._reply(req, True, "reset")
@@ -883,16 +875,13 @@ class Engine:
             "compute_us": self.comp_hist.summary(1e6, 1),
             "late_ticks": self.late_ticks,
             "margins": self.supervisor.margins(),
-            "device_status": self._last_status_bits(),
+            "device_status": self._status_bits,
             "params": {k: getattr(self.params, f) for k, f in TUNABLE_KEYS.items()},
             "reply": self.last_reply,
             "replies": list(self.replies),
             "rate_hz": self.cfg.device.rate_hz,
             "done": self._done,
         }
-
-    def _last_status_bits(self) -> int:
-        return getattr(self, "_status_bits", 0)
 
     def _summary(self) -> dict:
         c = self.link.counters if self.link is not None else None
@@ -912,26 +901,18 @@ class Engine:
         }
 
     def _finish_files(self, summary: dict) -> None:
-        if self.outcome == "running":
-            if self.trip is not None and self.trip.cause != "e-stop":
-                self.outcome = "tripped"
-            elif self.trip is not None:
-                self.outcome = "stopped"
-            else:
-                self.outcome = "stopped"
+        if self.outcome == "running":          # not completed: an operator e-stop is a stop, not a trip
+            self.outcome = "tripped" if self.trip is not None and self.trip.cause != "e-stop" else "stopped"
         if self.trip is not None and not self.stop_reason:
             self.stop_reason = self.trip.message
         self._emit(EventRecord("ended", f"outcome {self.outcome}: {self.stop_reason}", t=self.t_last))
         if self.recorder is not None:
-            plan = None
             self.recorder.close(outcome=self.outcome, stop_reason=self.stop_reason,
-                                trip=self.trip.as_dict() if self.trip else None, summary=_clean(summary))
-            if self.plan and self.outcome in ("completed", "tripped", "stopped"):
-                plan = self._evaluate_plan()
-                if plan is not None:
-                    self.recorder.update_meta(plan=plan)
+                                trip=self.trip.as_dict() if self.trip else None, summary=finite_or_none(summary))
+            if self.plan:
+                self.recorder.update_meta(plan=self._evaluate_plan())
 
-    def _evaluate_plan(self) -> dict | None:
+    def _evaluate_plan(self) -> dict:
         try:
             from rigloop.analysis.plan import evaluate_plan
             from rigloop.analysis.session import load_session
@@ -954,7 +935,7 @@ class Engine:
             self.sim.stop()
         for s in (self._wake_r, self._wake_w):
             s.close()
-        if getattr(self, "_log_handler", None) is not None:
+        if self._log_handler is not None:
             log.removeHandler(self._log_handler)
             self._log_handler.close()
 
@@ -967,10 +948,3 @@ def _num(x):
     except (TypeError, ValueError):
         return None
 
-
-def _clean(d):
-    if isinstance(d, dict):
-        return {k: _clean(v) for k, v in d.items()}
-    if isinstance(d, float) and not math.isfinite(d):
-        return None
-    return d

@@ -10,6 +10,7 @@ from __future__ import annotations
 import json
 import struct
 
+from rigloop.engine.records import finite_or_none
 from rigloop.engine.telemetry import _attach
 
 _HDR = struct.Struct("<qq")   # sequence (odd while writing), payload length
@@ -28,7 +29,7 @@ class StatusBlock:
             _HDR.pack_into(self.shm.buf, 0, 0, 0)
 
     def write(self, status: dict) -> None:
-        data = json.dumps(_finite(status), default=_default).encode()
+        data = json.dumps(finite_or_none(status), default=_default).encode()
         if len(data) > self.size - _HDR.size:
             data = json.dumps({"state": status.get("state"), "error": "status too large"}).encode()
         self._seq += 1
@@ -67,13 +68,3 @@ def _default(o):
     except (TypeError, ValueError):
         return str(o)
 
-
-def _finite(o):
-    """NaN and infinities become null: JSON has no spelling for them."""
-    if isinstance(o, float):
-        return o if o == o and o not in (float("inf"), float("-inf")) else None
-    if isinstance(o, dict):
-        return {k: _finite(v) for k, v in o.items()}
-    if isinstance(o, (list, tuple)):
-        return [_finite(v) for v in o]
-    return o
