@@ -88,9 +88,27 @@ def test_open_link_from_config(device_port):
     with open_link(serial_cfg) as link:
         assert isinstance(link, SerialLink) and link.url == "serial://loop://?baud=921600"
 
-    url_cfg = SimpleNamespace(link="serial", url=f"udp://127.0.0.1:{device_port}")
-    with open_link(url_cfg) as link:
-        assert isinstance(link, UdpLink)  # device.url wins over device.link
+    url_only = SimpleNamespace(url=f"udp://127.0.0.1:{device_port}")
+    with open_link(url_only) as link:
+        assert isinstance(link, UdpLink) and link.device_address == ("127.0.0.1", device_port)
+
+
+def test_open_link_from_a_loaded_config_keeps_the_local_address(device_port):
+    """A device on the network needs the host to listen on a non-loopback address: the config's
+    device.udp.local_host must reach the socket (the URL alone does not carry it)."""
+    from pathlib import Path
+
+    from rigloop.config import load_config
+
+    template = Path(__file__).resolve().parents[2] / "configs" / "template_udp.yaml"
+    cfg = load_config(template, ["device.udp.host=192.0.2.10", "device.udp.local_host=0.0.0.0",
+                                 "device.udp.local_port=0"])
+    with open_link(cfg.device) as link:             # binds only; nothing is sent
+        assert link.device_address == ("192.0.2.10", cfg.device.udp.port)
+        assert link.local_address[0] == "0.0.0.0"
+    cfg = load_config(template, [f"device.url=udp://127.0.0.1:{device_port}"])
+    with open_link(cfg.device) as link:             # device.url folded into the udp section
+        assert link.device_address == ("127.0.0.1", device_port)
 
 
 @pytest.mark.parametrize("kind, words", [("sim", "start the simulated device first"), ("can", "expected one of")])

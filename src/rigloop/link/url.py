@@ -73,24 +73,27 @@ def open_url(url: str) -> Link:
 
 
 def open_link(device_cfg) -> Link:
-    """Open the link a DeviceConfig describes (``device.url`` wins over ``device.link``).
+    """Open the link a DeviceConfig describes.
 
-    For ``link: sim`` the caller starts the simulated device first and opens its udp:// address.
+    The ``udp``/``serial`` sections are what counts: the config loader has already folded a
+    ``device.url`` into them, and only they carry settings a URL does not (``local_host``,
+    ``local_port``). An object with nothing but a ``url`` is opened by its URL. For
+    ``link: sim`` the caller starts the simulated device first and opens its udp:// address.
     """
-    url = getattr(device_cfg, "url", None)
-    if url:
-        return open_url(url)
     kind = getattr(device_cfg, "link", None)
-    if kind == "udp":
+    if kind == "udp" and getattr(device_cfg, "udp", None) is not None:
         udp = device_cfg.udp
         return UdpLink(
             udp.host, udp.port,
             local_host=getattr(udp, "local_host", None) or "127.0.0.1",
             local_port=getattr(udp, "local_port", None) or 0,
         )
-    if kind == "serial":
+    if kind == "serial" and getattr(device_cfg, "serial", None) is not None:
         ser = device_cfg.serial
         return SerialLink(ser.port, ser.baud)
+    url = getattr(device_cfg, "url", None)
+    if url:
+        return open_url(url)
     if kind == "sim":
         raise LinkError(
             "device.link is 'sim': start the simulated device first (rigloop.sim) and open the udp:// "
