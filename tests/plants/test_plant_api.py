@@ -85,3 +85,9 @@ def test_substeps_follow_the_fastest_time_constant():
     slow = make_plant("motor", {"inductance_h": 0.5, "resistance_ohm": 1.0, "torque_constant": 0.01,
                                 "inertia_kgm2": 0.01, "viscous_nms": 0.1, "dry_friction_nm": 0.0})
     assert slow.max_substep_s == pytest.approx(0.5 * 0.01 / (0.1 + 1e-4))
+
+
+@pytest.mark.parametrize("value", [float("inf"), float("nan")])
+def test_whole_number_parameter_refuses_non_finite_values_with_a_message(value):
+    with pytest.raises(ValueError, match="encoder_counts_per_rev.*not finite"):
+        make_plant("motor", {"encoder_counts_per_rev": value})

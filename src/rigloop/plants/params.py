@@ -66,13 +66,13 @@ def _check_value(kind: str, f: dataclasses.Field, value: Any) -> Any:
         raise fail("is missing a value")
     if not _is_number(value):
         raise fail("is not a number")
-    if rule == "count":
-        if float(value) != int(value) or value < 0:
-            raise fail("is not allowed")
-        return int(value)
     number = float(value)
     if not math.isfinite(number):
         raise fail("is not finite")
+    if rule == "count":
+        if number != int(number) or number < 0:
+            raise fail("is not allowed")
+        return int(number)
     if rule in ("positive", "optional_positive") and not number > 0.0:
         raise fail("is not allowed")
     if rule in ("nonnegative", "optional_nonnegative") and not number >= 0.0:
