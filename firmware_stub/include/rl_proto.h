@@ -76,8 +76,8 @@ typedef enum rl_reject {
     RL_REJECT_VERSION,
     RL_REJECT_TYPE,
     RL_REJECT_LENGTH,
-    RL_REJECT_SEQUENCE,
     RL_REJECT_VALUE,
+    RL_REJECT_SEQUENCE,
     RL_REJECT_COUNT /* number of entries, not a reason */
 } rl_reject;
 
@@ -155,8 +155,8 @@ RL_MUST_CHECK size_t rl_proto_encode(const rl_msg *m, uint8_t *frame, size_t cap
 /*
  * Decode one frame (payload + CRC, no COBS). Runs the structural checks in protocol order:
  * short, crc, version, type, length. Returns RL_REJECT_NONE and fills *out on success.
- * Sequence rules need receiver state and value rules come after them, so they are separate:
- * see rl_proto_check_values and rl_seq_newer.
+ * Value rules and then sequence rules (which need receiver state) come after these, in that
+ * order, and are separate: see rl_proto_check_values and rl_seq_newer.
  */
 RL_MUST_CHECK rl_reject rl_proto_decode(const uint8_t *frame, size_t len, rl_msg *out);
 

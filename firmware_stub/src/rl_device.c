@@ -171,13 +171,14 @@ static void on_arm(rl_device *d)
 static rl_reject on_command(rl_device *d, const rl_msg *m)
 {
     const rl_command *c = &m->body.command;
-    if (d->have_last_seq != 0u && !rl_seq_newer(c->seq, d->last_seq)) {
-        count_reject(d, RL_REJECT_SEQUENCE);
-        return RL_REJECT_SEQUENCE;
-    }
+    /* docs/protocol.md section 3: value before sequence (what needs history comes last) */
     if (rl_proto_check_values(m) != RL_REJECT_NONE) {
         count_reject(d, RL_REJECT_VALUE);
         return RL_REJECT_VALUE;
+    }
+    if (d->have_last_seq != 0u && !rl_seq_newer(c->seq, d->last_seq)) {
+        count_reject(d, RL_REJECT_SEQUENCE);
+        return RL_REJECT_SEQUENCE;
     }
     d->have_last_seq = 1;
     d->last_seq = c->seq;

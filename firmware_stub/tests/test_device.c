@@ -332,10 +332,10 @@ static void device_sequence_rules(void)
     CHECK_EQ_U(s.status & RL_STATUS_RX_ERROR, RL_STATUS_RX_ERROR);
     s = fake_tick(&dev, &board);
     CHECK_EQ_U(s.status & RL_STATUS_RX_ERROR, 0u); /* only "since the previous SAMPLE" */
-    /* a stale sequence is reported before a bad value (check order) */
+    /* a bad value is reported before a stale sequence (docs/protocol.md section 3 order) */
     command(8, rl_nan());
-    CHECK_EQ_U(counters()->rejected[RL_REJECT_SEQUENCE], 3u);
-    CHECK_EQ_U(counters()->rejected[RL_REJECT_VALUE], 0u);
+    CHECK_EQ_U(counters()->rejected[RL_REJECT_SEQUENCE], 2u);
+    CHECK_EQ_U(counters()->rejected[RL_REJECT_VALUE], 1u);
     /* a jump forward by up to 2^31 - 1 is fine, and so is the wrap from 0xFFFFFFFF to 0 */
     command(10u + 0x7FFFFFFFu, 19.0f);
     CHECK_EQ_F(fake_tick(&dev, &board).applied, 19.0f);
@@ -347,16 +347,16 @@ static void device_sequence_rules(void)
     CHECK_EQ_U(s.last_cmd_seq, 0u);
     /* a jump of 2^31 or more counts as older */
     command(0x80000000u, 22.0f);
-    CHECK_EQ_U(counters()->rejected[RL_REJECT_SEQUENCE], 4u);
+    CHECK_EQ_U(counters()->rejected[RL_REJECT_SEQUENCE], 3u);
     /* the first COMMAND after a CONFIGURE is always accepted, even with an older number */
     configure_default();
     arm();
     command(5u, 30.0f);
-    CHECK_EQ_U(counters()->rejected[RL_REJECT_SEQUENCE], 4u);
+    CHECK_EQ_U(counters()->rejected[RL_REJECT_SEQUENCE], 3u);
     CHECK_EQ_F(fake_tick(&dev, &board).applied, 30.0f);
     m = msg_command(4u, 4u, 31.0f);
     (void)fake_send(&dev, &board, &m);
-    CHECK_EQ_U(counters()->rejected[RL_REJECT_SEQUENCE], 5u);
+    CHECK_EQ_U(counters()->rejected[RL_REJECT_SEQUENCE], 4u);
 }
 
 static void device_rejects_non_finite_command(void)

@@ -289,7 +289,7 @@ static void proto_sequence_arithmetic(void)
 static void proto_reject_names_match_doc(void)
 {
     static const char *const names[] = {"none", "cobs", "short", "crc", "version",
-                                        "type", "length", "sequence", "value"};
+                                        "type", "length", "value", "sequence"};
     int r;
     for (r = 0; r < (int)RL_REJECT_COUNT; ++r) {
         CHECK(strcmp(rl_reject_name((rl_reject)r), names[r]) == 0);
