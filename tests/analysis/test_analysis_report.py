@@ -180,3 +180,23 @@ def test_analysis_of_a_session_without_running_rows(make_session):
                                      (0.12345, "0.1235"), (267047.3, "267047"), (1.75e-6, "1.750e-06")])
 def test_number_format(x, text):
     assert fmt(x) == text
+
+
+def test_trips_from_events_keep_their_cause():
+    """Trip events are written "<cause>: <message>" by the engine; a second trip (not the one in
+    session.yaml) and an e-stop must come back with their causes, not as anonymous trips."""
+    from types import SimpleNamespace
+
+    from rigloop.analysis.report import session_trips
+    from rigloop.analysis.session import SessionEvent
+
+    first = {"cause": "limit", "t": 1.0, "channel": "speed_rpm", "value": 3400.0, "limit": 3300.0,
+             "stop": "immediate", "message": "speed_rpm above its maximum"}
+    events = [SessionEvent(t=1.0, wall_utc="", kind="trip", detail="limit: speed_rpm above its maximum",
+                           value=3400.0, limit=3300.0),
+              SessionEvent(t=6.0, wall_utc="", kind="trip", detail="stale-data: no fresh sample for 60 ms",
+                           value=0.06, limit=0.05),
+              SessionEvent(t=9.0, wall_utc="", kind="estop", detail="e-stop (gui)", value=None, limit=None)]
+    trips = session_trips(SimpleNamespace(meta={"trip": first}, events=events))
+    assert [(t["cause"], t["t"]) for t in trips] == [("limit", 1.0), ("stale-data", 6.0), ("e-stop", 9.0)]
+    assert trips[1]["message"] == "no fresh sample for 60 ms"

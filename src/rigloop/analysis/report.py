@@ -138,9 +138,14 @@ def session_trips(session: Session) -> list[dict]:
             continue
         if any(_same_time(ev.t, tr.get("t")) for tr in trips):
             continue
-        trips.append({"cause": "e-stop" if ev.kind == "estop" else None, "t": ev.t,
-                      "channel": None, "value": ev.value, "limit": ev.limit, "stop": None,
-                      "message": ev.detail})
+        # the engine writes trip events as "<cause>: <message>" (rigloop.engine.loop._trip)
+        cause, sep, message = (ev.detail or "").partition(": ")
+        if ev.kind == "estop":
+            cause, message = "e-stop", ev.detail
+        elif not sep or " " in cause:
+            cause, message = None, ev.detail
+        trips.append({"cause": cause, "t": ev.t, "channel": None, "value": ev.value, "limit": ev.limit,
+                      "stop": None, "message": message})
     return trips
 
 

@@ -124,6 +124,7 @@ class PastSessions(QWidget):
 
     def open(self, path) -> bool:
         """Load a session folder; False (with the reason shown) if it is not a readable session."""
+        from rigloop.analysis.report import session_trips
         from rigloop.analysis.session import SessionError, load_session
 
         try:
@@ -146,10 +147,10 @@ class PastSessions(QWidget):
                  if n and n != s.output_name]
         self.plots.set_extra_channels(extra)
         self.plots.show_rows(self.buffer, follow=False)
-        for ev in s.events:
-            if ev.kind == "trip" and ev.t is not None:
-                cause = ev.detail.split(":", 1)[0]
-                self.plots.add_marker(float(ev.t), f"TRIP: {CAUSE_WORDS.get(cause, cause)}")
+        for trip in session_trips(s):           # session.yaml's trip, other trips and e-stops
+            if trip.get("t") is not None:
+                cause = trip.get("cause") or "trip"
+                self.plots.add_marker(float(trip["t"]), f"TRIP: {CAUSE_WORDS.get(cause, cause)}")
         self.plots.fit_all()
         summary = s.summary
         units = {str(c.get("name")): str(c.get("unit") or "") for c in s.config.get("channels") or ()
