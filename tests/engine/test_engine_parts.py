@@ -146,3 +146,17 @@ def test_log_histogram_percentiles_within_resolution():
     for p in (50, 99):
         assert h.percentile(p) == pytest.approx(np.percentile(x, p), rel=0.03)
     assert len(h.counts) == h.n_bins < 1000                         # flat memory whatever the count
+
+
+def test_plain_data_is_strict_json_and_yaml():
+    import json
+    from pathlib import Path
+
+    from rigloop.plain_data import plain
+
+    data = {"a": math.nan, 1: (np.float64(2.5), np.int64(3), math.inf), "p": Path("/x"), "ok": True}
+    out = plain(data)
+    assert out == {"a": None, "1": [2.5, 3, None], "p": "/x", "ok": True}
+    assert type(out["1"][1]) is int
+    json.dumps(out, allow_nan=False)                 # would raise on NaN or numpy types
+    assert yaml.safe_load(yaml.safe_dump(out)) == out

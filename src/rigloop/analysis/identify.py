@@ -38,12 +38,7 @@ from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
-from rigloop.control.kernels import (
-    first_order_input_weights,
-    second_derivative_weights,
-    second_order_input_weights,
-    slope_weights,
-)
+from rigloop.control.kernels import algebraic_kernel
 from rigloop.control.tuning import effective_delay, ip_gains, ipd_gains, simc_pid
 
 #: Default hold at the operating level before the first step (s).
@@ -237,17 +232,10 @@ def detrended_std(t: np.ndarray, y: np.ndarray, degree: int) -> float:
 
 
 def derivative_weights(order: int, n: int, ts: float) -> tuple[np.ndarray, np.ndarray]:
-    """(y-weights, u-weights) of the derivative-free estimator of y^(m) over ``n`` intervals.
-
-    The y-weights are the least-squares slope (m = 1) or second derivative (m = 2) of
-    :mod:`rigloop.control.kernels`; the u-weights make ``Σc·y − alpha·Σw·u`` exact for the
-    ultra-local model with constant F and a zero-order-hold input (``Σw = 1``).
-    """
-    if order == 1:
-        c = slope_weights(n, ts)
-        return c, first_order_input_weights(c, ts)
-    c = second_derivative_weights(n, ts)
-    return c, second_order_input_weights(c, ts)
+    """(y-weights, u-weights) of the derivative-free estimator of y^(m) over ``n`` intervals:
+    the control core's algebraic kernel (:func:`rigloop.control.kernels.algebraic_kernel`)."""
+    k = algebraic_kernel(order, n, ts)
+    return k.y_weights, k.u_weights
 
 
 def estimator_noise_gain(order: int, n: int, ts: float) -> float:

@@ -16,6 +16,7 @@ from rigloop.analysis.metrics import RunMetrics, metric_unit
 from rigloop.analysis.plan import evaluate_plan, plan_reference_spec, plan_segments, session_plan
 from rigloop.analysis.segments import ProfileStep, Segment, analyse_segments, rows_metrics
 from rigloop.analysis.session import Session
+from rigloop.plain_data import plain
 
 #: Run metrics shown in the text report and compared between sessions: key, label.
 RUN_ROWS = (
@@ -351,19 +352,7 @@ def render_comparison(a: SessionAnalysis, b: SessionAnalysis) -> str:
 
 def json_ready(obj: Any) -> Any:
     """Replace NaN/inf with None (JSON has no NaN) and numpy scalars with Python numbers."""
-    if isinstance(obj, dict):
-        return {str(k): json_ready(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [json_ready(v) for v in obj]
-    if isinstance(obj, bool) or obj is None or isinstance(obj, str):
-        return obj
-    if isinstance(obj, (int,)):
-        return obj
-    try:
-        x = float(obj)
-    except (TypeError, ValueError):
-        return str(obj)
-    return x if math.isfinite(x) else None
+    return plain(obj)
 
 
 def to_json(obj: Any) -> str:

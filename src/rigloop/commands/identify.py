@@ -18,6 +18,7 @@ import sys
 from pathlib import Path
 
 from rigloop.commands._common import add_config_arguments, load_config_or_report
+from rigloop.plain_data import plain
 
 NAME = "identify"
 HELP = ("bump test: step the actuator around an operating level (open loop, every limit active), "
@@ -178,7 +179,7 @@ def _estimate_and_report(cfg, plan, session, *, tau_cl, write, as_json, stream) 
             code = EXIT_FAILED
     _record(session, {k: v for k, v in report.items() if k not in ("session", "written")})
     if as_json:
-        stream.write(json.dumps(_json_safe(report), indent=2) + "\n")
+        stream.write(json.dumps(plain(report), indent=2) + "\n")
     else:
         stream.write(render_text(cfg, plan, est, sugg, snippet, session, report["written"]))
     stream.flush()
@@ -203,22 +204,10 @@ def _record(session, block: dict) -> None:
     path = Path(session) / "session.yaml"
     try:
         meta = yaml.safe_load(path.read_text(encoding="utf-8")) or {}
-        meta["identify"] = _json_safe(block)
+        meta["identify"] = plain(block)
         write_yaml_atomic(path, meta)
     except (OSError, yaml.YAMLError) as exc:
         print(f"rigloop identify: could not add the results to {path}: {exc}", file=sys.stderr)
-
-
-def _json_safe(x):
-    if isinstance(x, dict):
-        return {str(k): _json_safe(v) for k, v in x.items()}
-    if isinstance(x, (list, tuple)):
-        return [_json_safe(v) for v in x]
-    if isinstance(x, float):
-        return x if math.isfinite(x) else None
-    if hasattr(x, "item"):            # numpy scalars
-        return _json_safe(x.item())
-    return x
 
 
 def _g(x, digits: int = 4) -> str:

@@ -25,7 +25,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from rigloop.engine.handshake import EngineError, handshake
-from rigloop.engine.records import EventRecord, TickRecord, Trip, finite_or_none
+from rigloop.engine.records import EventRecord, TickRecord, Trip
+from rigloop.plain_data import plain
 from rigloop.protocol.messages import (
     Arm,
     Command,
@@ -908,7 +909,7 @@ class Engine:
         self._emit(EventRecord("ended", f"outcome {self.outcome}: {self.stop_reason}", t=self.t_last))
         if self.recorder is not None:
             self.recorder.close(outcome=self.outcome, stop_reason=self.stop_reason,
-                                trip=self.trip.as_dict() if self.trip else None, summary=finite_or_none(summary))
+                                trip=self.trip.as_dict() if self.trip else None, summary=plain(summary))
             if self.plan:
                 self.recorder.update_meta(plan=self._evaluate_plan())
 

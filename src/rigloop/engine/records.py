@@ -85,18 +85,6 @@ def _finite_or_none(x):
     return xf if math.isfinite(xf) else str(xf)
 
 
-def finite_or_none(obj):
-    """NaN and infinities become None, recursively: YAML and JSON readers should not have to
-    know IEEE special values to read a summary."""
-    if isinstance(obj, float):
-        return obj if math.isfinite(obj) else None
-    if isinstance(obj, dict):
-        return {k: finite_or_none(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [finite_or_none(v) for v in obj]
-    return obj
-
-
 class Subscriber(Protocol):
     """Receives the engine's records. Display subscribers may swallow their own errors; the
     recorder must not (a failing recorder trips the rig)."""

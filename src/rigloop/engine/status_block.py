@@ -10,8 +10,8 @@ from __future__ import annotations
 import json
 import struct
 
-from rigloop.engine.records import finite_or_none
 from rigloop.engine.telemetry import _attach
+from rigloop.plain_data import plain
 
 _HDR = struct.Struct("<qq")   # sequence (odd while writing), payload length
 
@@ -29,7 +29,7 @@ class StatusBlock:
             _HDR.pack_into(self.shm.buf, 0, 0, 0)
 
     def write(self, status: dict) -> None:
-        data = json.dumps(finite_or_none(status), default=_default).encode()
+        data = json.dumps(plain(status), default=_default).encode()
         if len(data) > self.size - _HDR.size:
             data = json.dumps({"state": status.get("state"), "error": "status too large"}).encode()
         self._seq += 1
