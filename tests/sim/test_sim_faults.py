@@ -238,6 +238,14 @@ def test_silent_device_keeps_running_the_plant_and_the_watchdog():
     assert all(f is not None for f, s in zip(sent, samples) if s.t_us < 100_000)
     assert all(f is None for f, s in zip(sent, samples) if s.t_us >= 100_000)
     assert samples[-1].channels[0] > samples[9].channels[0]      # the plant went on
+    # a host that hears nothing stops answering: the watchdog still fires, silently
+    last_answer_us = samples[-1].t_us
+    quiet = [m for _ in range(2 * WD // P + 2) for m in dev.tick()]
+    watchdog = [m for m in quiet if isinstance(m, Fault)]
+    assert [f.code for f in watchdog] == [FaultCode.WATCHDOG] and not faults
+    assert WD < watchdog[0].t_us - last_answer_us <= WD + P
+    assert dev.faults.outgoing(encode_frame(watchdog[0]), watchdog[0].t_us) is None
+    assert [m for m in quiet if isinstance(m, Sample)][-1].applied == 0.0
 
 
 def test_ignore_stop_leaves_the_output_running():

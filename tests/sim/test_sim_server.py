@@ -4,6 +4,9 @@ from __future__ import annotations
 
 import csv
 import io
+import os
+
+import pytest
 
 from rigloop.protocol import Status
 from rigloop.sim.device import build_device
@@ -73,3 +76,29 @@ def test_logs_are_complete_after_the_run(tmp_path):
     assert list(rows[0])[:6] == ["t_us", "seq", "applied", "status", "last_cmd_seq", "tx"]
     assert list(rows[0])[6:] == ["speed_rpm", "current_a", "airflow_m3h", "temp_c"]
     assert (tmp_path / "rx.jsonl").read_text() == ""          # nothing was received
+
+
+@pytest.mark.skipif(not hasattr(os, "openpty"), reason="needs a POSIX pseudo-terminal")
+def test_a_frame_cut_short_on_the_pty_costs_only_itself(monkeypatch):
+    """After a short write the next frame starts with a delimiter, so the host's decoder loses
+    the cut frame only; the failure is counted (and traced as tx-error by the server)."""
+    from rigloop.sim import server
+
+    transport = server.PtyTransport()
+    try:
+        transport.has_peer = True
+        writes = []
+
+        def fake_write(fd, data):
+            writes.append(bytes(data))
+            return len(data) // 2 if len(writes) == 1 else len(data)
+
+        monkeypatch.setattr(server.os, "write", fake_write)
+        transport.send(b"\x01\x02\x03\x04")
+        transport.send(b"\x05\x06\x07\x08")
+        transport.send(b"\x09\x0a\x0b\x0c")
+        assert transport.tx_errors == 1
+        assert writes[1].startswith(b"\x00") and not writes[0].startswith(b"\x00")
+        assert not writes[2].startswith(b"\x00")          # only right after the cut
+    finally:
+        transport.close()

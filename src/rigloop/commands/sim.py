@@ -111,7 +111,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                              "and per watchdog expiry")
     parser.add_argument("--trace", metavar="FILE", type=Path, default=None,
                         help="write one CSV row per tick: t_us, seq, applied, status, "
-                             "last_cmd_seq, tx (sent, dropped, corrupted, silenced, no-peer), "
+                             "last_cmd_seq, tx (sent, dropped, corrupted, silenced, no-peer, tx-error), "
                              "then the channels as sent")
     parser.add_argument("--quit-after", metavar="S", type=_number(0, "device seconds", strict=True),
                         default=None, help="exit after this many device seconds")

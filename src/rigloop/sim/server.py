@@ -136,6 +136,7 @@ class PtyTransport:
         self.url = f"serial://{self.slave_path}"
         self.has_peer = False
         self.tx_errors = 0
+        self._cut = False          # the last write stopped inside a frame
 
     def fileno(self) -> int:
         return self.master
@@ -162,15 +163,16 @@ class PtyTransport:
         if not self.has_peer:
             return
         data = cobs_encode(frame) + b"\x00"
+        if self._cut:                  # the last frame went out cut short: end it first, so the
+            data = b"\x00" + data      # host loses that frame only, not this one as well
         try:
             written = os.write(self.master, data)
-        except (BlockingIOError, InterruptedError):
+        except (BlockingIOError, InterruptedError, OSError):
             written = 0
-        except OSError:
-            written = 0
+        # The host is not reading; a real UART would overrun too. The host's decoder drops the
+        # cut frame and resynchronises at the next delimiter.
+        self._cut = 0 < written < len(data)
         if written != len(data):
-            # The host is not reading; a real UART would overrun too. The host's decoder
-            # resynchronises at the next delimiter.
             self.tx_errors += 1
 
     def close(self) -> None:
@@ -219,7 +221,7 @@ class SimServer:
         self._parent = os.getppid()
         self._quit_after_us = (None if options.quit_after_s is None
                                else int(round(options.quit_after_s * 1e6)))
-        self.tx_results: dict[str, int] = {"sent": 0, "no-peer": 0, "dropped": 0,
+        self.tx_results: dict[str, int] = {"sent": 0, "tx-error": 0, "no-peer": 0, "dropped": 0,
                                            "corrupted": 0, "silenced": 0}
         try:
             self._open_logs()
@@ -378,7 +380,10 @@ class SimServer:
                     result = "silenced" if faults.is_silent(now_us) else "dropped"
                 else:
                     result = "corrupted" if faults and faults.last_corrupted else "sent"
+                    errors = transport.tx_errors
                     transport.send(frame)
+                    if transport.tx_errors != errors:
+                        result = "tx-error"     # the transport could not write it
             self.tx_results[result] += 1
             if self._trace is not None and type(msg) is Sample:
                 self._trace_row(msg, result)
