@@ -189,16 +189,19 @@ def test_frequencies_below_half_the_sample_rate():
 
 
 @pytest.mark.parametrize("text, expected", [
-    ("time,value\n0,1\n1,2\n", "header t,r"),
+    ("time,value\n0,1\n1,2\n", "header must be 't,r'"),
     ("t,r\n0,1\n", "at least 2 data rows"),
-    ("t,r\n0,1\n0,2\n", "t must increase"),
-    ("t,r\n0,1\n1,fast\n", "two numbers"),
+    ("t,r\n0,1\n0,2\n", "t = 0.0 does not increase"),
+    ("t,r\n0,1\n1,fast\n", "r = 'fast' is not a number"),
+    ("\ufefft,r\n0,1\n1,2\n", None),                 # a spreadsheet's byte-order mark is fine
 ])
 def test_reference_table_must_parse(tmp_path, text, expected):
     (tmp_path / "profile.csv").write_text(text, encoding="utf-8")
-    found = problems(with_values(base(), {"reference": {"kind": "table", "file": "profile.csv"}}),
-                     base_dir=tmp_path)
-    assert expected in found["reference.file"]
+    mapping = with_values(base(), {"reference": {"kind": "table", "file": "profile.csv"}})
+    if expected is None:
+        assert parse_config(mapping, base_dir=tmp_path).reference["file"]
+    else:
+        assert expected in problems(mapping, base_dir=tmp_path)["reference.file"]
 
 
 def test_reference_table_is_found_next_to_the_config_file(tmp_path, monkeypatch, write):

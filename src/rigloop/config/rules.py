@@ -7,8 +7,6 @@ also resolve file paths against the config file's folder (they check those files
 
 from __future__ import annotations
 
-import csv
-import math
 import re
 from collections.abc import Callable, Iterator
 from pathlib import Path
@@ -346,31 +344,19 @@ def _levels(ref: dict) -> Iterator[Problem]:
 
 
 def check_reference_table(path: Path) -> str | None:
-    """None if ``path`` is a usable ``t,r`` CSV table, else what is wrong with it."""
-    try:
-        with path.open(newline="", encoding="utf-8-sig") as handle:
-            rows = [row for row in csv.reader(handle) if row and any(c.strip() for c in row)]
-    except FileNotFoundError:
-        return f"file not found (looked for {path.resolve()}); paths are relative to the config file"
-    except IsADirectoryError:
+    """None if ``path`` is a usable ``t,r`` CSV table, else what is wrong with it. The reading
+    itself is the reference builder's (:meth:`rigloop.control.reference.Table.from_csv`), so
+    the check and the run can never disagree about a file."""
+    if path.is_dir():
         return f"{path} is a folder; give a CSV file with header t,r"
-    except (OSError, UnicodeDecodeError, csv.Error) as error:
-        return f"cannot read {path}: {error}"
-    if not rows or [c.strip() for c in rows[0]] != ["t", "r"]:
-        return f"{path.name}: the first line must be the header t,r"
-    if len(rows) < 3:
-        return f"{path.name}: needs at least 2 data rows below the header"
-    previous = -math.inf
-    for line, row in enumerate(rows[1:], start=2):
-        try:
-            t, r = (float(c) for c in row)
-        except ValueError:
-            return f"{path.name}, row {line}: expected two numbers t,r, got {','.join(row)!r}"
-        if not (math.isfinite(t) and math.isfinite(r)):
-            return f"{path.name}, row {line}: values must be finite"
-        if t <= previous:
-            return f"{path.name}, row {line}: t must increase from row to row"
-        previous = t
+    if not path.exists():
+        return f"file not found (looked for {path.resolve()}); paths are relative to the config file"
+    from rigloop.control.reference import Table
+
+    try:
+        Table.from_csv(path)
+    except ValueError as error:
+        return str(error).removeprefix("reference.file: ")
     return None
 
 

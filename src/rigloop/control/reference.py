@@ -354,11 +354,11 @@ class Table(Reference):
         """Read a CSV with the header ``t,r`` (seconds, output units)."""
         path = Path(path)
         try:
-            with path.open(newline="", encoding="utf-8") as fh:
+            with path.open(newline="", encoding="utf-8-sig") as fh:     # spreadsheets add a BOM
                 rows = list(csv.reader(fh))
         except FileNotFoundError:
             raise ValueError(f"reference.file: {path} does not exist; give a CSV path relative to the config") from None
-        except (OSError, UnicodeDecodeError) as exc:
+        except (OSError, UnicodeDecodeError, csv.Error) as exc:
             raise ValueError(f"reference.file: cannot read {path}: {exc}") from None
         rows = [(n + 1, row) for n, row in enumerate(rows) if row and any(c.strip() for c in row)]
         if not rows:
