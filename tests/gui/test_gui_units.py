@@ -367,3 +367,17 @@ def test_live_view_window_pause_readout_and_trip_marker(qtbot, demo_cfg):
     live.note_status({"last_trip": {"cause": "limit", "t": 24.5}})
     live.note_status({"last_trip": {"cause": "limit", "t": 24.5}})
     assert [t for t, _ in live.plots.markers] == [24.5]
+
+
+def test_a_recording_is_held_once_not_doubled():
+    """Past sessions are read-only: the buffer wraps the rows without an appending reserve."""
+    import numpy as np
+
+    from rigloop.gui.trace_buffer import TraceBuffer
+
+    rows = np.arange(12.0).reshape(4, 3)
+    buf = TraceBuffer.from_rows(("t", "y", "u"), rows)
+    assert len(buf) == 4 and buf.rows.shape == (4, 3) and buf._data.shape == (4, 3)
+    assert buf.column("y").tolist() == [1.0, 4.0, 7.0, 10.0]
+    buf.append(np.array([[12.0, 13.0, 14.0]]))          # still usable: the oldest row makes room
+    assert buf.column("t").tolist() == [3.0, 6.0, 9.0, 12.0]

@@ -34,12 +34,10 @@ def buffer_from_session(session) -> TraceBuffer:
     """The session's samples in the same column layout as the live telemetry."""
     channels = [str(c.get("name")) for c in session.config.get("channels") or () if isinstance(c, dict)]
     fields = list(_BASE) + [f"ch:{n}" for n in channels]
-    n = session.n_rows
-    buf = TraceBuffer(fields, max(1, n))
-    if n:
-        cols = [session.column(f) for f in _BASE] + [session.column(c) for c in channels]
-        buf.append(np.column_stack([np.asarray(c, dtype=float) for c in cols]))
-    return buf
+    if not session.n_rows:
+        return TraceBuffer(fields, 1)
+    cols = [session.column(f) for f in _BASE] + [session.column(c) for c in channels]
+    return TraceBuffer.from_rows(fields, np.column_stack([np.asarray(c, dtype=float) for c in cols]))
 
 
 class PastSessions(QWidget):
@@ -132,7 +130,6 @@ class PastSessions(QWidget):
         except SessionError as exc:
             self.info.setText(f"<span style='color:#ff8a7a'>Cannot open {path}: {exc}</span>")
             return False
-        self.session = s
         self.buffer = buffer_from_session(s)
         act = s.actuator
         ctl = s.config.get("control") if isinstance(s.config.get("control"), dict) else {}
@@ -164,6 +161,8 @@ class PastSessions(QWidget):
         if s.truncated:
             lines.append(f"<span style='color:#f3c460'>{s.truncated}</span>")
         self.info.setText("<br>".join(lines))
+        s.samples.clear()          # the buffer holds the rows now: keep only the session's metadata
+        self.session = s
         return True
 
     def _readout(self, t: float) -> None:

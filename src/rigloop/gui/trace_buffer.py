@@ -23,6 +23,18 @@ class TraceBuffer:
         self._n = 0
         self.total = 0          # rows ever appended
 
+    @classmethod
+    def from_rows(cls, fields, rows: np.ndarray) -> "TraceBuffer":
+        """A buffer holding exactly ``rows`` (read-only views of a recording): no second half
+        reserved for appending, no copy when the array is already float64."""
+        rows = np.ascontiguousarray(rows, dtype=np.float64)
+        buf = cls(fields, 1)
+        if rows.ndim == 2 and rows.shape[0]:
+            buf.capacity = rows.shape[0]
+            buf._data = rows
+            buf._n = buf.total = rows.shape[0]
+        return buf
+
     def __len__(self) -> int:
         return self._n
 
