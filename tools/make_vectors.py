@@ -1,6 +1,6 @@
 #!/usr/bin/env python3
 """Write docs/protocol-vectors.json: encoded examples both the Python codec and the C firmware
-stub are tested against. The format is described in docs/protocol.md §10.
+stub are tested against. The format is described in docs/protocol.md §12.
 
 Usage:  python tools/make_vectors.py            # rewrite the file
         python tools/make_vectors.py --check    # exit 1 if the file differs from what we'd write

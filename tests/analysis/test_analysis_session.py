@@ -136,8 +136,5 @@ def test_nan_written_as_text_or_as_an_empty_field_reads_the_same(make_session):
     b = load_session(make_session("text", duration_s=2.0, nan_text="nan"))
     assert a.columns == b.columns
     for name in a.columns:
-        if name == "state":
-            np.testing.assert_array_equal(a.samples[name], b.samples[name])
-        else:
-            np.testing.assert_array_equal(a.samples[name], b.samples[name])   # NaN == NaN here
+        np.testing.assert_array_equal(a.samples[name], b.samples[name])       # NaN == NaN here
     assert np.isnan(b.samples["f_hat"][0]) and a.warnings == b.warnings == []

@@ -115,11 +115,19 @@ def test_unusable_device_choice_says_what_to_fix(choice, words):
         overrides_for(DeviceChoice(**choice))
 
 
-def test_serial_port_list_is_a_list_of_names():
+def test_serial_port_list_puts_usb_boards_first_and_describes_them(monkeypatch):
+    from types import SimpleNamespace
+
+    from serial.tools import list_ports
+
     from rigloop.gui.device_choice import list_serial_ports
 
-    ports = list_serial_ports()
-    assert all(isinstance(name, str) and isinstance(desc, str) for name, desc in ports)
+    found = [SimpleNamespace(device="/dev/ttyS0", description="n/a", manufacturer=None),
+             SimpleNamespace(device="/dev/ttyACM0", description="Fan rig board", manufacturer="Bench Co"),
+             SimpleNamespace(device="/dev/ttyUSB1", description="USB serial", manufacturer=None)]
+    monkeypatch.setattr(list_ports, "comports", lambda: found)
+    assert list_serial_ports() == [("/dev/ttyACM0", "Fan rig board (Bench Co)"),
+                                   ("/dev/ttyUSB1", "USB serial"), ("/dev/ttyS0", "")]
 
 
 # ------------------------------------------------------------------ trace buffer

@@ -68,6 +68,8 @@ def _assignment(text: str) -> tuple[str, str]:
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
+    from rigloop.sim.faults import fault_syntax
+
     where = parser.add_mutually_exclusive_group()
     where.add_argument("--udp", metavar="HOST:PORT", type=_udp_address, default=None,
                        help=f"listen on this UDP address (default {DEFAULT_UDP}; port 0 picks a "
@@ -102,9 +104,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--offset", metavar="NAME=O", type=_assignment, action="append",
                         default=[], help="offset of channel NAME for that scaling (repeatable)")
     parser.add_argument("--fault", metavar="SPEC", action="append", default=[],
-                        help="inject a fault, KIND[:key=value,...] (repeatable); kinds: drop, "
-                             "corrupt, freeze, spike, nan, silent, deaf, load, ignore-stop; "
-                             "times (at=) are device seconds")
+                        help="inject a fault, KIND[:key=value,...] (repeatable): " + fault_syntax()
+                             + "; times (at=) are device seconds")
     parser.add_argument("--rx-log", metavar="FILE", type=Path, default=None,
                         help="write one JSON line per received frame (device time, type, "
                              "fields, outcome: accepted, ignored or rejected with its reason) "

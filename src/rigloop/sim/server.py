@@ -29,7 +29,7 @@ Clocks:
 
 The process prints one line, ``rigloop-sim listening <url>``, when it is ready, and exits
 cleanly (logs flushed, exit status 0) on SIGTERM/SIGINT, after ``quit_after_s`` device seconds,
-and — when asked — when its parent process dies.
+and when its parent process dies (asked with ``exit_with_parent``; always with the lockstep clock).
 """
 
 from __future__ import annotations
