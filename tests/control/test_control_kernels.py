@@ -180,10 +180,9 @@ def test_sliding_window_is_contiguous_and_oldest_first():
     assert w.count == 0 and not w.full
 
 
-def test_sliding_window_without_cached_views(monkeypatch):
+def test_sliding_window_view_after_wrapping_twice():
     from rigloop.control import ring
 
-    monkeypatch.setattr(ring, "CACHED_VIEWS_MAX", 2)
     w = ring.SlidingWindow(5)
     for v in range(12):
         w.push(float(v))
@@ -227,3 +226,20 @@ def test_estimator_weights_over_a_pair_window_equal_the_kernel_form():
         win.push(a, b)
     w = interleave(k.y_weights, None, 9) - 2.5 * interleave(None, k.u_weights, 9)
     assert win.dot(w) == pytest.approx(np.dot(k.y_weights, y) - 2.5 * np.dot(k.u_weights, u[:-1]), rel=1e-12)
+
+
+@pytest.mark.parametrize("old_len, new_len, pushed", [(3, 5, 7), (5, 3, 7), (4, 4, 2), (6, 2, 1), (3, 8, 3)])
+def test_resized_window_equals_pushing_the_newest_samples_again(old_len, new_len, pushed):
+    w = PairWindow(old_len)
+    for k in range(pushed):
+        w.push(float(k), 100.0 + k)
+    fast = w.resized(new_len)
+    slow = PairWindow(new_len)
+    ys, us = w.newest(min(new_len, w.count))
+    for y, u in zip(ys, us):
+        slow.push(float(y), float(u))
+    np.testing.assert_array_equal(fast.view(), slow.view())
+    assert fast.count == slow.count
+    fast.push(-1.0, -2.0)                       # and it carries on like the slow one
+    slow.push(-1.0, -2.0)
+    np.testing.assert_array_equal(fast.view(), slow.view())

@@ -3,9 +3,7 @@
 Why: an estimator evaluates ``weights · window`` every sample. Keeping the values twice in a
 buffer of twice the window length ("doubled ring") means the newest ``length`` samples are always
 one contiguous slice, oldest first, so a single ``dot`` with precomputed weights does the work
-and nothing is copied per sample. The slices are created once, up front, for windows up to
-:data:`CACHED_VIEWS_MAX` samples (larger windows slice on the fly; a slice is a view, freed at
-once, so memory stays flat either way).
+and nothing is copied per sample (a slice is a view, freed at once, so memory stays flat).
 
 :class:`SlidingWindow` keeps one value per sample. :class:`PairWindow` keeps the pair
 ``(y_k, u_k)`` of each sample interleaved (``y_0, u_0, y_1, u_1, ...``), so that an estimate that
@@ -18,10 +16,6 @@ import numbers
 
 import numpy as np
 
-#: Windows up to this many samples keep one precomputed view per ring position.
-CACHED_VIEWS_MAX = 16384
-
-
 def _check_length(length: int) -> int:
     if isinstance(length, bool) or not isinstance(length, numbers.Integral) or length < 1:
         raise ValueError(f"window length must be an integer >= 1, got {length!r}")
@@ -31,7 +25,7 @@ def _check_length(length: int) -> int:
 class _DoubledRing:
     """``width`` values per sample, the newest ``length`` samples contiguous, oldest first."""
 
-    __slots__ = ("length", "width", "count", "_buf", "_pos", "_views", "_span", "_half")
+    __slots__ = ("length", "width", "count", "_buf", "_pos", "_span", "_half")
 
     def __init__(self, length: int, width: int) -> None:
         self.length = _check_length(length)
@@ -41,10 +35,6 @@ class _DoubledRing:
         self._buf = np.zeros(2 * self._span)
         self._pos = 0  # index (in values) of the oldest sample of the window
         self.count = 0
-        if self.length <= CACHED_VIEWS_MAX:
-            self._views = [self._buf[p : p + self._span] for p in range(0, self._span, width)]
-        else:
-            self._views = None
 
     @property
     def full(self) -> bool:
@@ -53,8 +43,6 @@ class _DoubledRing:
 
     def view(self) -> np.ndarray:
         """The window, oldest first (samples not yet pushed read as 0). Do not modify."""
-        if self._views is not None:
-            return self._views[self._pos // self.width]
         return self._buf[self._pos : self._pos + self._span]
 
     def dot(self, weights: np.ndarray) -> float:
@@ -121,11 +109,16 @@ class PairWindow(_DoubledRing):
         return tail[0::2].copy(), tail[1::2].copy()
 
     def resized(self, length: int) -> PairWindow:
-        """A new window of ``length`` samples holding the newest samples of this one."""
+        """A new window of ``length`` samples holding the newest samples of this one (two block
+        copies: a live change of the estimator window must not stall the loop)."""
         out = PairWindow(length)
-        ys, us = self.newest(min(length, self.count))
-        for y, u in zip(ys.tolist(), us.tolist()):
-            out.push(y, u)
+        n = min(out.length, self.count)
+        if n:
+            tail = self.view()[2 * (self.length - n):]
+            out._buf[: 2 * n] = tail
+            out._buf[out._half : out._half + 2 * n] = tail
+            out._pos = (2 * n) % out._span
+            out.count = n
         return out
 
 
