@@ -14,11 +14,7 @@ import sys
 
 from rigloop import __version__
 from rigloop import commands as _commands_pkg
-
-#: Exit codes shared by every command (documented in the README).
-EXIT_OK = 0
-EXIT_INTERNAL = 1
-EXIT_USAGE = 2
+from rigloop.exit_codes import EXIT_OK, EXIT_SIGNAL
 
 
 def _command_modules():
@@ -59,7 +55,7 @@ def main(argv: list[str] | None = None) -> int:
         return int(args._run(args))
     except KeyboardInterrupt:
         print("rigloop: interrupted", file=sys.stderr)
-        return 130
+        return EXIT_SIGNAL
     except BrokenPipeError:
         return EXIT_OK
 

@@ -9,9 +9,9 @@ import pytest
 import yaml
 
 from rigloop.analysis.plan import (
-    EXIT_PLAN_FAILED, evaluate_plan, load_plan, plan_duration, plan_reference_spec,
-    plan_segments, validate_plan,
+    evaluate_plan, load_plan, plan_duration, plan_reference_spec, plan_segments, validate_plan,
 )
+from rigloop.exit_codes import EXIT_PLAN_FAILED
 from rigloop.analysis.session import load_session
 from rigloop.control.reference import build_reference
 

@@ -2,7 +2,7 @@
 
 A plan drives the reference (it becomes a ``levels`` reference spec) and, once the run is
 recorded, judges it: each segment's step and tracking metrics and the whole run's metrics are
-compared with the limits the plan gives. ``rigloop run`` exits with :data:`EXIT_PLAN_FAILED`
+compared with the limits the plan gives. ``rigloop run`` exits with :data:`rigloop.exit_codes.EXIT_PLAN_FAILED`
 when the run completed but a criterion failed. The schema is documented in docs/reports.md::
 
     plan:
@@ -31,8 +31,6 @@ from rigloop.analysis.segments import rows_metrics, running_starts, segment_metr
 from rigloop.analysis.session import Session
 from rigloop.config.problems import MISSING, Problem
 
-#: Exit code of ``rigloop run`` when the run completed but a plan criterion failed.
-EXIT_PLAN_FAILED = 4
 
 DEFAULT_LEAD_S = 2.0
 DEFAULT_BLEND_S = 1.0

@@ -9,7 +9,6 @@ from typing import TextIO
 
 from rigloop.config import Config, ConfigError, warnings_of
 
-EXIT_OK, EXIT_INTERNAL, EXIT_USAGE = 0, 1, 2
 
 
 class _AppendSet(argparse.Action):

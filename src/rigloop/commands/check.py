@@ -9,13 +9,9 @@ from __future__ import annotations
 import argparse
 import sys
 
-from rigloop.commands._common import (
-    EXIT_OK,
-    EXIT_USAGE,
-    add_config_arguments,
-    load_config_or_report,
-)
+from rigloop.commands._common import add_config_arguments, load_config_or_report
 from rigloop.config import Config, Derived, derived_quantities
+from rigloop.exit_codes import EXIT_OK, EXIT_USAGE
 
 NAME = "check"
 HELP = ("validate a configuration file and print the quantities that follow from it (loop "

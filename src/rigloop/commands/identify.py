@@ -18,13 +18,14 @@ import sys
 from pathlib import Path
 
 from rigloop.commands._common import add_config_arguments, load_config_or_report
+from rigloop.exit_codes import EXIT_INTERNAL as EXIT_FAILED
+from rigloop.exit_codes import EXIT_OK, EXIT_SIGNAL, EXIT_TRIPPED, EXIT_USAGE
 from rigloop.plain_data import plain
 
 NAME = "identify"
 HELP = ("bump test: step the actuator around an operating level (open loop, every limit active), "
         "estimate alpha and a FOPDT model, suggest gains and an estimator window")
 
-EXIT_OK, EXIT_FAILED, EXIT_USAGE, EXIT_TRIPPED, EXIT_SIGNAL = 0, 1, 2, 3, 130
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:

@@ -11,7 +11,7 @@ import argparse
 import sys
 from pathlib import Path
 
-from rigloop.cli import EXIT_OK, EXIT_USAGE
+from rigloop.exit_codes import EXIT_OK, EXIT_USAGE
 
 NAME = "report"
 HELP = ("summarise a recorded session — transitions, tracking error, actuator effort, loop "

@@ -11,6 +11,7 @@ import signal
 import sys
 
 from rigloop.commands._common import add_config_arguments, load_config_or_report
+from rigloop.exit_codes import EXIT_INTERNAL, EXIT_USAGE
 
 NAME = "run"
 HELP = "run a recorded session headless on the configured rig (real or simulated)"
@@ -32,10 +33,10 @@ def run(args) -> int:
         sets.append(f"plan={Path(args.plan).resolve()}")
     cfg = load_config_or_report(args.config, sets)
     if cfg is None:
-        return 2
+        return EXIT_USAGE
     if args.duration is not None and not args.duration > 0:
         print(f"usage error: --duration {args.duration}: must be a positive number of seconds", file=sys.stderr)
-        return 2
+        return EXIT_USAGE
     return run_headless(cfg, duration_s=args.duration, out_dir=args.out, quiet=args.quiet)
 
 
@@ -61,7 +62,7 @@ def run_headless(cfg, *, duration_s=None, out_dir=None, quiet=False, stream=None
         print(f"rigloop run: {exc}", file=sys.stderr)
         if engine.session_dir:
             print(f"session: {engine.session_dir}", file=sys.stderr)
-        return 1
+        return EXIT_INTERNAL
     finally:
         for s, h in old.items():
             signal.signal(s, h)

@@ -11,11 +11,11 @@ import json
 import math
 import sys
 from pathlib import Path
+from rigloop.exit_codes import EXIT_USAGE
 
 NAME = "sim"
 HELP = "run the simulated device (fan or motor model) on UDP or a pseudo-terminal serial port"
 
-EXIT_OK, EXIT_USAGE = 0, 2
 DEFAULT_UDP = "127.0.0.1:47800"
 
 

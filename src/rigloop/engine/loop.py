@@ -42,6 +42,7 @@ from rigloop.engine.states import State, TransitionRefused, next_state
 from rigloop.engine.supervisor import Supervisor
 from rigloop.engine.timing import LogHistogram
 from rigloop.engine.tunables import TUNABLE_KEYS, control_params_from_config
+from rigloop.exit_codes import EXIT_INTERNAL, EXIT_OK, EXIT_PLAN_FAILED, EXIT_SIGNAL, EXIT_TRIPPED
 
 log = logging.getLogger("rigloop.engine")
 
@@ -268,13 +269,13 @@ class Engine:
     def _exit_code(self) -> int:
         if self.outcome == "completed":
             if self.plan_result is not None and not self.plan_result.get("passed", True):
-                return 4
-            return 0
+                return EXIT_PLAN_FAILED
+            return EXIT_OK
         if self.outcome == "tripped":
-            return 3
+            return EXIT_TRIPPED
         if self._signal_stop:
-            return 130
-        return 0 if self.outcome == "stopped" else 1
+            return EXIT_SIGNAL
+        return EXIT_OK if self.outcome == "stopped" else EXIT_INTERNAL
 
     # ------------------------------------------------------------------ the loop
     def _loop(self) -> None:
