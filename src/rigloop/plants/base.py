@@ -157,6 +157,14 @@ class PlantBase:
         finally:
             self._held_load = None
 
+    #: Index of the rotor speed in the state (both plants are DC machines: ``[i, w, ...]``).
+    speed_state_index = 1
+
+    def stop_rotor(self) -> None:
+        """Set the rotor speed to zero: a locked rotor (sim fault) is held there after every
+        advance, so the current rises to its stall value and the angle stays put."""
+        self.state[self.speed_state_index] = 0.0
+
     def read(self) -> np.ndarray:
         """Noise-free channel values as the rig's sensors deliver them (see ``outputs``)."""
         return self.outputs(self.state)

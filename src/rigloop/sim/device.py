@@ -409,6 +409,9 @@ class SimDevice:
         if self.armed and self._pending is not None:
             seq, value = self._pending
             applied = min(max(value, self.u_min), self.u_max)
+            ceiling = self.faults.applied_ceiling(now_us) if self.faults else None
+            if ceiling is not None and applied > ceiling:   # a clamp the host does not know of
+                applied = max(ceiling, self.u_min)
             self.clamped = applied != value
             self.output = applied
             self.last_cmd_seq = seq
@@ -441,7 +444,11 @@ class SimDevice:
     def _advance_plant(self, now_us: int) -> None:
         dt_us = now_us - self._plant_us
         if dt_us > 0:
-            self.plant.advance(self.output, dt_us * 1e-6)
+            faults = self.faults
+            drive = faults.drive(self.output, self.safe, now_us) if faults else self.output
+            self.plant.advance(drive, dt_us * 1e-6)
+            if faults and faults.rotor_locked(now_us):
+                self.plant.stop_rotor()
             self._plant_us = now_us
 
     def _to_safe(self, now_us: int) -> None:

@@ -27,6 +27,20 @@ load           ``at``, ``torque``                          the plant's load torq
                                                            ``torque`` [N·m] at ``at``
 ignore-stop    (none)                                      STOP does nothing (only to prove that the
                                                            host stops the rig on its own; unsafe)
+reverse        ``channel``, ``at``                         the channel counts the other way from the
+                                                           value it read at ``at`` (a swapped
+                                                           encoder pair, a sign error in firmware)
+disconnect     ``channel``, ``at``, ``value`` (default 0)  the channel reads the constant ``value``
+                                                           from ``at`` on (an open wire reading 0 or
+                                                           an input pulled to its rail)
+locked-rotor   ``at``                                      the rotor stops at ``at`` and stays
+                                                           stopped; the sensors keep working
+slip           ``at``, ``fraction`` (0..1)                 from ``at`` on the plant receives only
+                                                           ``fraction`` of the actuator's drive
+                                                           (a slipping coupling or belt)
+device-clamp   ``at``, ``value``                           from ``at`` on the device applies at most
+                                                           ``value``, whatever it was commanded (a
+                                                           clamp the host does not know of)
 =============  ==========================================  ==========================================
 
 Channel values are replaced in engineering units, before the device's raw scaling.
@@ -97,6 +111,7 @@ _KEY_TYPES: dict[str, _KeyType] = {
     "value": _KeyType(_finite, "a finite number in the channel's units, e.g. value=5000"),
     "samples": _KeyType(_count, "a whole number >= 1, e.g. samples=3"),
     "torque": _KeyType(_finite, "a finite load torque in N·m, e.g. torque=0.02"),
+    "fraction": _KeyType(_probability, "a fraction between 0 and 1, e.g. fraction=0.2"),
 }
 
 
@@ -121,6 +136,11 @@ FAULT_KINDS: dict[str, _Kind] = {
     "deaf": _Kind(("at",)),
     "load": _Kind(("at", "torque")),
     "ignore-stop": _Kind(()),
+    "reverse": _Kind(("channel", "at")),
+    "disconnect": _Kind(("channel", "at"), {"value": 0.0}),
+    "locked-rotor": _Kind(("at",)),
+    "slip": _Kind(("at", "fraction")),
+    "device-clamp": _Kind(("at", "value")),
 }
 
 
@@ -136,6 +156,7 @@ class FaultSpec:
     value: float = math.nan
     samples: int = 1
     torque: float = 0.0
+    fraction: float = 1.0
 
     @property
     def at_us(self) -> int:
@@ -224,7 +245,9 @@ class FaultInjector:
         self.last_corrupted = False
         self.counters: dict[str, int] = {"dropped": 0, "corrupted": 0, "silenced": 0,
                                          "deaf_ignored": 0, "stop_ignored": 0, "frozen": 0,
-                                         "spiked": 0, "nan": 0, "load_steps": 0}
+                                         "spiked": 0, "nan": 0, "load_steps": 0, "reversed": 0,
+                                         "disconnected": 0}
+        self._reverse_from: dict[int, float] = {}
         self._by_kind = {k: [(i, s) for i, s in enumerate(self.specs) if s.kind == k]
                          for k in FAULT_KINDS}
 
@@ -301,4 +324,28 @@ class FaultInjector:
             elif spec.kind == "nan":
                 values[k] = math.nan
                 self.counters["nan"] += 1
+            elif spec.kind == "reverse":
+                if i not in self._reverse_from:
+                    self._reverse_from[i] = float(values[k])
+                values[k] = 2.0 * self._reverse_from[i] - values[k]
+                self.counters["reversed"] += 1
+            elif spec.kind == "disconnect":
+                values[k] = spec.value
+                self.counters["disconnected"] += 1
         return values
+
+    # -- faults of the drive train (the device asks before it advances the plant) ---------------
+    def rotor_locked(self, now_us: int) -> bool:
+        """Is the rotor held at standstill at ``now_us`` (a ``locked-rotor`` fault)?"""
+        return any(now_us >= s.at_us for _, s in self._by_kind["locked-rotor"])
+
+    def drive(self, u: float, safe: float, now_us: int) -> float:
+        """The actuator value the plant receives: ``safe + fraction·(u − safe)`` while a ``slip``
+        fault acts (the smallest fraction of those due), else ``u``."""
+        fractions = [s.fraction for _, s in self._by_kind["slip"] if now_us >= s.at_us]
+        return safe + min(fractions) * (u - safe) if fractions else u
+
+    def applied_ceiling(self, now_us: int) -> float | None:
+        """The device-side clamp of a ``device-clamp`` fault at ``now_us`` (None: none)."""
+        due = [s.value for _, s in self._by_kind["device-clamp"] if now_us >= s.at_us]
+        return min(due) if due else None
