@@ -39,24 +39,46 @@ def _sup(tmp_path, *sets):
 
 
 def test_supervisor_limits_and_rates(tmp_path):
-    sup = _sup(tmp_path, "limits.speed_rpm.rate_max=1000", "limits.speed_rpm.frozen_s=0.05")
-    vals = [1000.0, 0.1, 30.0, 30.0]
-    assert sup.check_sample(0.0, vals, True) is None
-    trip = sup.check_sample(0.01, [1005.0, 0.1, 30.0, 30.0], True)
-    assert trip is None                             # 500 rpm/s < 1000 rpm/s
-    trip = sup.check_sample(0.02, [1030.0, 0.1, 30.0, 30.0], True)
-    assert trip.cause == "rate-limit" and trip.value == pytest.approx(2500.0)
-    trip = sup.check_sample(0.03, [3400.0, 0.1, 30.0, 30.0], True)
+    sup = _sup(tmp_path, "limits.speed_rpm.rate_max=1000")
+    ts = 0.002                                      # the demo's 500 Hz
+    for k in range(6):                              # a straight line at 500 rpm/s: the LS slope is exact
+        trip = sup.check_sample(k * ts, [1000.0 + 500.0 * k * ts, 0.1, 30.0, 30.0], True)
+        assert trip is None
+    for k in range(6, 12):                          # now 2500 rpm/s: trips once the slope sees it
+        trip = sup.check_sample(k * ts, [1006.0 + 2500.0 * (k - 6) * ts, 0.1, 30.0, 30.0], True)
+        if trip is not None:
+            break
+    assert trip.cause == "rate-limit" and trip.limit == 1000 and trip.value > 1000
+    assert "above" not in trip.message and "changing faster" in trip.message
+    trip = sup.check_sample(1.0, [3400.0, 0.1, 30.0, 30.0], True)
     assert trip.cause == "limit" and trip.limit == 3300.0 and trip.channel == "speed_rpm"
-    trip = sup.check_sample(0.04, [1000.0, math.nan, 30.0, 30.0], True)
+    assert trip.value == 3400.0 and "3400" not in trip.message and "3300" not in trip.message  # said once, in value/limit
+    trip = sup.check_sample(1.002, [1000.0, math.nan, 30.0, 30.0], True)
     assert trip.cause == "non-finite" and trip.channel == "current_a"
 
 
-def test_supervisor_frozen_sensor(tmp_path):
-    sup = _sup(tmp_path, "limits.speed_rpm.frozen_s=0.05")
-    trips = [sup.check_sample(k * 0.01, [1000.0, 0.1, 1.0, 1.0], True) for k in range(8)]
+def test_supervisor_rate_is_a_slope_not_a_difference(tmp_path):
+    """Noise of std 8 rpm at 500 Hz: raw differences reach ~ 8*sqrt(2)*4/0.002 = 23 000 rpm/s; the
+    six-sample least-squares slope keeps its noise at 8*||c|| = 956 rpm/s, so a limit of 10 000 rpm/s
+    holds for 20 000 samples (rng noise, seeded)."""
+    sup = _sup(tmp_path, "limits.speed_rpm.rate_max=10000")
+    rng = np.random.default_rng(3)
+    trips = [sup.check_sample(k * 0.002, [1500.0 + 8.0 * rng.standard_normal(), 0.1, 30.0, 30.0], True)
+             for k in range(20000)]
+    assert all(t is None for t in trips)
+    raw = np.abs(np.diff(1500.0 + 8.0 * rng.standard_normal(20000))) / 0.002
+    assert raw.max() > 10000                         # what the old raw-difference check tripped on
+
+
+def test_supervisor_frozen_channel_needs_a_moving_command(tmp_path):
+    sup = _sup(tmp_path, "limits.current_a.frozen_s=0.05")
+    # at rest: the command stays at the safe value, the reading repeats exactly: never a trip
+    trips = [sup.check_sample(k * 0.01, [0.0, 0.0, 1.0, 1.0], True) for k in range(100)]
+    assert all(t is None for t in trips)
+    sup.note_command(60.0, 1)                        # the command moved by 60 % of the range
+    trips = [sup.check_sample(1.0 + k * 0.01, [0.0, 0.0, 1.0, 1.0], True) for k in range(10)]
     first = next(i for i, t in enumerate(trips) if t is not None)
-    assert first == 5 and trips[first].cause == "frozen-sensor"   # 0.05 s after the value stuck
+    assert trips[first].cause == "frozen-sensor" and trips[first].channel == "current_a"
 
 
 def test_supervisor_bursts_and_stale(tmp_path):

@@ -109,24 +109,56 @@ def test_nan_channel_trips_non_finite(tmp_path):
     assert_stop_is_next_frame(rx, int(s.samples.seq[i]))
 
 
-def test_frozen_sensor_trips(tmp_path):
-    cfg = fan_config(tmp_path, "device.sim.faults=['freeze:channel=speed_rpm,at=3']",
-                     "limits.speed_rpm.frozen_s=0.2")
+def test_frozen_channel_with_frozen_s_trips_once_the_command_moves(tmp_path):
+    """limits.<channel>.frozen_s on a channel other than the output (the output's own frozen check
+    is part of the plausibility checks, tests/engine/test_feedback_checks.py)."""
+    cfg = fan_config(tmp_path, "device.sim.faults=['freeze:channel=current_a,at=3']",
+                     "limits.current_a.frozen_s=0.2", "limits.plausibility.enabled=false")
     _, s, rx = run_engine(cfg, tmp_path)
     i = trip_row(s, "frozen-sensor")
-    assert s.samples.t[i] == pytest.approx(3.0 + 0.2, abs=2 * cfg.device.period_s)
+    assert s.trip["channel"] == "current_a"
+    assert 3.2 - 2 * cfg.device.period_s <= s.samples.t[i] <= 7.5     # at the step at 7 s at the latest
     assert (s.samples.u[i + 1:] == SAFE).all()
     assert_stop_is_next_frame(rx, int(s.samples.seq[i]))
 
 
+def _top_acceleration_rpm_s() -> float:
+    """The fan's largest acceleration: full duty at standstill, current at its quasi-static value
+    (the plant model's own y' at u = 100 %)."""
+    from rigloop.plants import make_plant
+
+    plant = make_plant("fan")
+    plant.reset()
+    return plant.quasi_static_rate("speed_rpm", 1, 100.0)
+
+
+def test_rate_limit_at_a_physical_limit_holds_on_noise(tmp_path):
+    """2.5x the fan's top acceleration (about 4300 rpm/s, so ~10 700 rpm/s) on the nominal sensor
+    noise at 500 Hz: the whole demo runs through (the raw-difference check tripped within 0.4 s)."""
+    limit = 2.5 * _top_acceleration_rpm_s()
+    assert 3000 < limit / 2.5 < 6000
+    cfg = fan_config(tmp_path, f"limits.speed_rpm.rate_max={limit}")
+    result, s, _ = run_engine(cfg, tmp_path, duration_s=8.0)
+    assert result.exit_code == 0 and s.meta["outcome"] == "completed", s.trip
+    assert "warning" not in set(s.events.kind)         # the limit is far above the noise
+
+
 def test_spike_trips_rate_limit(tmp_path):
+    limit = 2.5 * _top_acceleration_rpm_s()
     cfg = fan_config(tmp_path, "device.sim.faults=['spike:channel=speed_rpm,at=3,value=3200']",
-                     "limits.speed_rpm.rate_max=100000")
+                     f"limits.speed_rpm.rate_max={limit}")
     _, s, rx = run_engine(cfg, tmp_path)
     i = trip_row(s, "rate-limit")
-    assert s.samples.speed_rpm[i] == pytest.approx(3200, rel=1e-6)
-    assert abs(s.trip["value"]) > 100000 and s.trip["limit"] == 100000
+    assert s.samples.speed_rpm[i] == pytest.approx(3200, rel=1e-6)   # on the spike's own sample
+    assert abs(s.trip["value"]) > limit and s.trip["limit"] == pytest.approx(limit)
     assert_stop_is_next_frame(rx, int(s.samples.seq[i]))
+
+
+def test_rate_limit_below_the_noise_is_warned_at_run_time(tmp_path):
+    cfg = fan_config(tmp_path, "limits.speed_rpm.rate_max=5000")   # 5.2 sigma of the rate noise: below 6
+    _, s, _ = run_engine(cfg, tmp_path, duration_s=0.5)
+    warnings = s.events[s.events.kind == "warning"].detail.tolist()
+    assert any("rate_max" in w and "noise" in w for w in warnings), warnings
 
 
 def test_device_watchdog_trips(tmp_path):

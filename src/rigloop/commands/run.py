@@ -78,7 +78,8 @@ def print_summary(result, stream) -> None:
     w(f"outcome: {result.outcome}" + (f" ({result.stop_reason})" if result.stop_reason else "") + "\n")
     if result.trip is not None:
         t = result.trip
-        w(f"trip: {t.cause} at t={_g(t.t)} s: {t.message}\n")
+        figures = f" (value {_g(t.value)}, limit {_g(t.limit)})" if t.value is not None and t.limit is not None else ""
+        w(f"trip: {t.cause} at t={_g(t.t)} s: {t.message}{figures}\n")
     rms = s.get("rms_error")
     w(f"samples: {s.get('samples')}  running: {s.get('running_samples')}  "
       f"RMS error: {_g(rms)}  max |e|: {_g(s.get('max_abs_error'))}\n")

@@ -260,6 +260,9 @@ def derived_quantities(cfg: Config) -> list[Derived]:
     _closed_loop(cfg, out)
     _link(cfg, out)
     _safety(cfg, out)
+    from rigloop.config.feedback_checks import feedback_figures
+
+    out.extend(feedback_figures(cfg))
     return out
 
 

@@ -76,6 +76,7 @@ class ChannelConfig:
     unit: str
     scale: float
     offset: float
+    noise_std: float | None = None
 
 
 @dataclass(frozen=True)
@@ -119,6 +120,16 @@ class ChannelLimit:
 
 
 @dataclass(frozen=True)
+class PlausibilityConfig:
+    """limits.plausibility (rigloop.engine.plausibility; defaults in config.feedback_checks)."""
+
+    enabled: bool = True
+    response_s: float | None = None
+    frozen_s: float | None = None
+    applied: bool = True
+
+
+@dataclass(frozen=True)
 class LimitsConfig:
     channels: dict[str, ChannelLimit]
     stale_periods: int
@@ -127,6 +138,7 @@ class LimitsConfig:
     link_errors_window_s: float
     overruns_max: int
     overruns_window_s: float
+    plausibility: PlausibilityConfig = PlausibilityConfig()
 
 
 @dataclass(frozen=True)
@@ -201,6 +213,7 @@ def build_config(root: dict, *, source_path: Path | None, base_dir: Path, url: s
         link_errors_max=lim["link_errors"]["max"],
         link_errors_window_s=lim["link_errors"]["window_s"],
         overruns_max=lim["overruns"]["max"], overruns_window_s=lim["overruns"]["window_s"],
+        plausibility=PlausibilityConfig(**lim["plausibility"]),
     )
     return Config(
         rig=root["rig"],

@@ -150,6 +150,19 @@ class Integer(ValueType):
 
 
 @dataclass(frozen=True)
+class Flag(ValueType):
+    """true or false (YAML's yes/no/on/off are not accepted: they surprise people)."""
+
+    def describe(self) -> str:
+        return "true or false"
+
+    def check(self, value):
+        if isinstance(value, bool):
+            return value, None
+        return None, f"must be {self.describe()}, not {_type_name(value)}"
+
+
+@dataclass(frozen=True)
 class Text(ValueType):
     pattern: str | None = None
     pattern_doc: str = ""
@@ -392,6 +405,9 @@ SCHEMA: tuple[Key, ...] = (
     Key("channels[].unit", Text(allow_empty=True), "", "engineering unit, for labels"),
     Key("channels[].scale", Number(nonzero=True), 1.0, "value = raw * scale + offset"),
     Key("channels[].offset", _NUM, 0.0, "value = raw * scale + offset"),
+    Key("channels[].noise_std", _NONNEG, None,
+        "stated sensor noise (standard deviation, channel unit), e.g. from a data sheet; null = "
+        "measured from the samples before ARM (the larger of the two is used)", nullable=True),
     Key("actuator", Section(), REQUIRED, "the actuator the law drives"),
     Key("actuator.name", Text(NAME_PATTERN, NAME_DOC), "u", "actuator name, for labels"),
     Key("actuator.unit", Text(allow_empty=True), "", "actuator unit"),
@@ -478,6 +494,19 @@ SCHEMA: tuple[Key, ...] = (
     Key("limits.overruns", Section(), {}, "trip when the host is late too often"),
     Key("limits.overruns.max", Integer(ge=0), 50, "late ticks allowed within window_s"),
     Key("limits.overruns.window_s", _POS, 1.0, "window for overruns.max [s]"),
+    Key("limits.plausibility", Section(), {},
+        "feedback plausibility: does the controlled output answer the actuator (safety.md)"),
+    Key("limits.plausibility.enabled", Flag(), True,
+        "false switches the no-response checks off (rigloop check warns)"),
+    Key("limits.plausibility.response_s", _POS, None,
+        "time the output gets to answer the actuator at a limit [s]; null = 5 closed-loop time "
+        "constants + the estimator window (rigloop identify suggests one)", nullable=True),
+    Key("limits.plausibility.frozen_s", _POS, None,
+        "an output repeating exactly this long while the loop asks it to change trips [s]; "
+        "null = response_s", nullable=True),
+    Key("limits.plausibility.applied", Flag(), True,
+        "false switches off the check of the device's applied value against the command "
+        "(rigloop check warns)"),
     # ---- recording and run
     Key("recording", Section(), {}, "where and how sessions are written"),
     Key("recording.dir", Text(), "sessions",

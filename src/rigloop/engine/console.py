@@ -27,7 +27,9 @@ class ConsoleStatus:
     def on_event(self, ev: EventRecord) -> None:
         if ev.kind in ("trip", "estop", "stop", "armed", "reset", "link_fault", "device_fault", "param", "warning"):
             self._clear()
-            self.stream.write(f"[{ev.kind}] {ev.detail}\n")
+            figures = (f" (value {ev.value:.6g}, limit {ev.limit:.6g})"
+                       if ev.kind == "trip" and ev.value is not None and ev.limit is not None else "")
+            self.stream.write(f"[{ev.kind}] {ev.detail}{figures}\n")
             self.stream.flush()
 
     def poll(self, now: float) -> None:

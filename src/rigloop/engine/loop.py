@@ -25,6 +25,7 @@ from pathlib import Path
 
 from rigloop.engine.front_end import FrontEndRequests, _Request
 from rigloop.engine.handshake import EngineError  # noqa: F401 - public name, imported from here
+from rigloop.plain_data import plain
 from rigloop.engine.records import EventRecord, TickRecord, Trip, num_or_none
 from rigloop.engine.recorder import SessionRecorder, utc_now_iso
 from rigloop.engine.session import RunResult, SessionLifecycle  # noqa: F401 - RunResult is public here
@@ -90,6 +91,7 @@ class Engine(SessionLifecycle, FrontEndRequests):
         self.t_last: float | None = None      # device time of the newest sample (s), None before any
         self._armed_seen = False
         self._arm_wait = 0
+        self._autostart_pending = False       # arm once the noise floor is measured
         self._status_bits = 0                 # the device's status in its newest sample
         self._wall_minus_perf = time.time() - time.perf_counter()
 
@@ -227,8 +229,13 @@ class Engine(SessionLifecycle, FrontEndRequests):
             trip = self._check_arm_confirmed(t, s.status) \
                 or self.supervisor.check_status(t, s.status, self._armed_seen and self.state in (State.RUNNING, State.STOPPING)) \
                 or self.supervisor.check_sample(t, values, running)
+            if trip is None and self._armed_seen and self.state in (State.RUNNING, State.STOPPING) \
+                    and s.status & ARMED and not s.status & STOP_LATCHED:
+                trip = self.supervisor.check_applied(t, s.last_cmd_seq, s.applied)
             if trip is not None:
                 self._trip(trip)
+            elif self.state is State.IDLE:
+                self.supervisor.idle_sample(values)          # the noise floor, before ARM
             r = dr = e = f_hat = math.nan
             state = self.state
             if state is State.RUNNING:
@@ -244,7 +251,8 @@ class Engine(SessionLifecycle, FrontEndRequests):
                     u_req = self.controller.step(y, s.applied, r, dr, ddr)
                     f_hat = self.controller.f_hat
                     e = y - r
-                trip = self.supervisor.check_output(t, u_req)
+                trip = self.supervisor.check_output(t, u_req) \
+                    or self.supervisor.check_response(t, y, s.applied, r)
                 if trip is not None:
                     self._trip(trip)
                     u_req = self.safe
@@ -272,6 +280,8 @@ class Engine(SessionLifecycle, FrontEndRequests):
                 self.cmd_seq = (self.cmd_seq + 1) & 0xFFFFFFFF
                 self.link.send(Command(self.cmd_seq, s.seq, float(u_cmd)))
                 t_sent = time.perf_counter()
+                self.supervisor.note_command(
+                    u_cmd, self.cmd_seq if self.state in (State.RUNNING, State.STOPPING) else None)
                 self.u_cmd = u_cmd
                 self.last_cmd_t = t
                 t_from = rx_first if (rx_first is not None and n == 1) else t_arrival
@@ -303,6 +313,9 @@ class Engine(SessionLifecycle, FrontEndRequests):
             rec = TickRecord(t, s.seq, r, dr, y, e, self.u_cmd, s.applied, f_hat, state.value, values,
                              s.status, latency_ms, compute_us, late if newest else 0, lateness_ms)
             self._publish(rec)
+        if self._autostart_pending and self.state is State.IDLE and self.supervisor.noise_ready:
+            self._autostart_pending = False      # the noise floor is measured: start the run
+            self._arm("autostart")
         self._check_tail()
 
     def _start_blend(self, y: float) -> None:
@@ -445,6 +458,15 @@ class Engine(SessionLifecycle, FrontEndRequests):
         self.run_t0 = None
         self.ref_origin = 0.0
         self._emit(EventRecord("armed", f"armed ({source})", t=self.t_last))
+        self._feedback_checks_armed()
+
+    def _feedback_checks_armed(self) -> None:
+        """Fix the noise floor (recorded in session.yaml) and restart the plausibility checks."""
+        first = self.supervisor.noise_floor is None
+        for text in self.supervisor.on_arm():
+            self._emit(EventRecord("warning", text, t=self.t_last))
+        if first and self.recorder is not None:
+            self.recorder.update_meta(noise_floor=plain(self.supervisor.noise_floor))
 
     def _t_rel_now(self) -> float:
         if self.run_t0 is None or self.t_last is None:

@@ -72,6 +72,7 @@ TRIP_CAUSES = (
     "e-stop", "limit", "rate-limit", "frozen-sensor", "stale-data", "link-errors",
     "device-fault", "device-watchdog", "non-finite", "overrun", "max-duration",
     "front-end-lost", "link-lost", "recorder-failed", "internal-error",
+    "no-response", "applied-mismatch",
 )
 
 

@@ -151,8 +151,7 @@ class SessionLifecycle:
         self._last_status = 0.0
         self._transition("connected")
         self._emit(EventRecord("connected", f"{url} device {self.hello.name!r}"))
-        if self.autostart:
-            self._arm("autostart")
+        self._autostart_pending = self.autostart   # armed by the loop after the noise floor
         try:
             self._loop()
         except Exception as exc:  # the safety path fails loudly: stop the rig, then report

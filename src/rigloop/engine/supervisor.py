@@ -10,6 +10,16 @@ from __future__ import annotations
 import math
 from collections import deque
 
+from rigloop.control.kernels import slope_weights
+from rigloop.engine.plausibility import (
+    RATE_NOISE_SIGMAS,
+    RATE_WINDOW_INTERVALS,
+    AppliedCheck,
+    NoiseMeter,
+    ResponseMonitor,
+    idle_samples_needed,
+    rate_noise_gain,
+)
 from rigloop.engine.records import Trip
 from rigloop.protocol.messages import Status
 
@@ -35,8 +45,10 @@ class _Burst:
 
 
 class ChannelGuard:
+    """Limits of one channel, with the last samples its rate of change is estimated from."""
+
     __slots__ = ("name", "unit", "index", "min", "max", "rate_max", "frozen_s", "stop",
-                 "_last_v", "_last_t", "_same_since")
+                 "_last_v", "_last_t", "_same_since", "_u_ref", "_ring", "_n")
 
     def __init__(self, name, unit, index, lim):
         self.name = name
@@ -50,6 +62,9 @@ class ChannelGuard:
         self._last_v = None
         self._last_t = None
         self._same_since = None
+        self._u_ref = None
+        self._ring: deque[float] = deque(maxlen=RATE_WINDOW_INTERVALS + 1)
+        self._n = 0
 
 
 def _opt(x):
@@ -58,6 +73,13 @@ def _opt(x):
 
 def _fmt(x: float) -> str:
     return f"{x:.6g}"
+
+
+def _reference_span(cfg) -> float | None:
+    from rigloop.config.derived import _reference_extremes
+
+    ext = _reference_extremes(cfg)
+    return (ext[1] - ext[0]) or None if ext is not None else None
 
 
 class Supervisor:
@@ -80,10 +102,15 @@ class Supervisor:
         self._overruns = _Burst(lim.overruns_max, lim.overruns_window_s)
         self._last_rejected = 0
         self.last_values = None
+        self._rate_w = [float(c) for c in slope_weights(RATE_WINDOW_INTERVALS, self.period_s)]
+        self._u_now = float(cfg.actuator.safe)
+        self._safe = float(cfg.actuator.safe)
+        self._du_far = 0.25 * abs(cfg.actuator.max - cfg.actuator.min)
+        self._feedback_setup(cfg)
 
     # -- per-sample checks -----------------------------------------------------------------
     def check_sample(self, t: float, values, running: bool) -> Trip | None:
-        """Non-finite channels, min/max, rate of change and frozen sensors, in that order."""
+        """Non-finite channels, min/max, rate of change and frozen channels, in that order."""
         self.last_values = values
         for i, v in enumerate(values):
             if not math.isfinite(v):
@@ -92,32 +119,124 @@ class Supervisor:
         for g in self.guards:
             v = values[g.index]
             if g.max is not None and v > g.max:
-                return Trip("limit", f"{g.name} {_fmt(v)} {g.unit} above its maximum {_fmt(g.max)} {g.unit}",
-                            t=t, channel=g.name, value=v, limit=g.max, stop=g.stop)
+                return Trip("limit", f"{g.name} above its maximum [{g.unit}]", t=t, channel=g.name, value=v,
+                            limit=g.max, stop=g.stop)
             if g.min is not None and v < g.min:
-                return Trip("limit", f"{g.name} {_fmt(v)} {g.unit} below its minimum {_fmt(g.min)} {g.unit}",
-                            t=t, channel=g.name, value=v, limit=g.min, stop=g.stop)
-            if g._last_t is not None and t > g._last_t:
-                if g.rate_max is not None:
-                    rate = (v - g._last_v) / (t - g._last_t)
+                return Trip("limit", f"{g.name} below its minimum [{g.unit}]", t=t, channel=g.name, value=v,
+                            limit=g.min, stop=g.stop)
+            if g.rate_max is not None:
+                g._ring.append(v)
+                if len(g._ring) > RATE_WINDOW_INTERVALS:
+                    rate = sum(c * y for c, y in zip(self._rate_w, g._ring))
                     if abs(rate) > g.rate_max:
-                        g._last_v, g._last_t = v, t
                         return Trip("rate-limit",
-                                    f"{g.name} changing at {_fmt(rate)} {g.unit}/s, limit ±{_fmt(g.rate_max)} {g.unit}/s",
+                                    f"{g.name} changing faster than its rate limit [{g.unit}/s] "
+                                    f"(slope over the last {RATE_WINDOW_INTERVALS + 1} samples)",
                                     t=t, channel=g.name, value=rate, limit=g.rate_max, stop=g.stop)
-                if g.frozen_s is not None:
-                    if v == g._last_v:
-                        if g._same_since is None:
-                            g._same_since = g._last_t
-                        if running and t - g._same_since >= g.frozen_s:
-                            return Trip("frozen-sensor",
-                                        f"{g.name} stuck at {_fmt(v)} {g.unit} for {_fmt(t - g._same_since)} s "
-                                        f"(limit {_fmt(g.frozen_s)} s)",
-                                        t=t, channel=g.name, value=t - g._same_since, limit=g.frozen_s, stop=g.stop)
-                    else:
-                        g._same_since = None
+            if g.frozen_s is not None and g._last_t is not None and t > g._last_t:
+                trip = self._frozen_channel(g, t, v, running)
+                if trip is not None:
+                    return trip
             g._last_v, g._last_t = v, t
         return None
+
+    def _frozen_channel(self, g: ChannelGuard, t: float, v: float, running: bool) -> Trip | None:
+        """A channel repeating its value exactly for frozen_s, but only while the command moved
+        far since it started repeating (a quantized reading at rest repeats forever)."""
+        if v != g._last_v:
+            g._same_since = None
+            return None
+        if g._same_since is None:
+            g._same_since = g._last_t
+            g._u_ref = self._u_now
+        held = t - g._same_since
+        if running and held >= g.frozen_s and abs(self._u_now - g._u_ref) >= self._du_far:
+            g._last_v, g._last_t = v, t
+            return Trip("frozen-sensor",
+                        f"{g.name} stuck at {_fmt(v)} {g.unit} for {_fmt(held)} s while the command moved "
+                        f"{_fmt(self._u_now - g._u_ref)} (frozen_s {_fmt(g.frozen_s)} s)",
+                        t=t, channel=g.name, value=held, limit=g.frozen_s, stop=g.stop)
+        return None
+
+    # -- feedback plausibility (rigloop.engine.plausibility) ---------------------------------
+    def _feedback_setup(self, cfg) -> None:
+        from rigloop.config.feedback_checks import frozen_time, response_time, stated_noise
+
+        plaus = cfg.limits.plausibility
+        a, ctl = cfg.actuator, cfg.control
+        self.stated_noise = stated_noise(cfg)
+        self.noise = NoiseMeter(self.channel_names, idle_samples_needed(cfg.device.rate_hz))
+        self.noise_floor: dict | None = None
+        self.output_index = cfg.channel_index(ctl.output)
+        self.response = None
+        if plaus.enabled:
+            lim = cfg.limits.channels.get(ctl.output)
+            span = (lim.max - lim.min) if lim is not None and lim.min is not None and lim.max is not None \
+                else _reference_span(cfg)
+            window = max(2, round((ctl.estimator.window_s if ctl.estimator.kind != "one-step"
+                                   else 10 * self.period_s) / self.period_s))
+            unit = cfg.channels[self.output_index].unit
+            self.response = ResponseMonitor(
+                channel=ctl.output, unit=unit, order=ctl.order, alpha=ctl.alpha, u_min=a.min,
+                u_max=a.max, safe=a.safe, period_s=self.period_s, response_s=response_time(cfg)[0],
+                frozen_s=frozen_time(cfg), window=window, span=span,
+                std=self.stated_noise.get(ctl.output, 0.0), actuator=a.name, actuator_unit=a.unit)
+        self.applied = AppliedCheck(u_min=a.min, u_max=a.max, safe=a.safe, actuator=a.name,
+                                    unit=a.unit) if plaus.applied else None
+
+    def idle_sample(self, values) -> None:
+        """A sample while not running: material for the noise floor."""
+        if not self.noise.done:
+            self.noise.add(values)
+
+    @property
+    def noise_ready(self) -> bool:
+        return self.noise.done
+
+    def on_arm(self) -> list[str]:
+        """At ARM: fix the noise floor (first ARM), reset the monitors; return warnings to log."""
+        warnings = []
+        if self.noise_floor is None:
+            self.noise_floor = self.noise.floor()
+            for name, entry in self.noise_floor.items():
+                if name in self.stated_noise:
+                    entry["stated_std"] = self.stated_noise[name]
+            for g in self.guards:
+                if g.rate_max is None:
+                    continue
+                entry = self.noise_floor[g.name]
+                std = max(entry["std"], entry.get("stated_std") or 0.0)
+                floor = RATE_NOISE_SIGMAS * std * rate_noise_gain(self.period_s)
+                if g.rate_max < floor:
+                    warnings.append(f"limits.{g.name}.rate_max {_fmt(g.rate_max)} {g.unit}/s is below "
+                                    f"{_fmt(floor)} {g.unit}/s, {RATE_NOISE_SIGMAS:g} sigma of the rate "
+                                    f"noise the sensor showed at rest (std {_fmt(std)} {g.unit}): it may "
+                                    f"trip on noise")
+            if self.response is not None:
+                entry = self.noise_floor[self.response.channel]
+                std = max(entry["std"], entry.get("stated_std") or 0.0)
+                self.response.set_noise(std, entry["resolution"])
+        if self.response is not None:
+            self.response.reset()
+        if self.applied is not None:
+            self.applied.reset()
+        return warnings
+
+    def note_command(self, u: float, seq: int | None = None) -> None:
+        """The command just sent (seq None: not in a run, the device ignores it)."""
+        self._u_now = u
+        if seq is not None and self.applied is not None:
+            self.applied.sent(seq, u)
+
+    def check_response(self, t: float, y: float, u_applied: float, r: float) -> Trip | None:
+        if self.response is None:
+            return None
+        return self.response.update(t, y, u_applied, r)
+
+    def check_applied(self, t: float, last_cmd_seq: int, applied: float) -> Trip | None:
+        if self.applied is None:
+            return None
+        return self.applied.check(t, last_cmd_seq, applied)
 
     def check_status(self, t: float, status: int, running: bool) -> Trip | None:
         if status & _FAULT:

@@ -38,6 +38,8 @@ CAUSE_WORDS: dict[str, str] = {
     "front-end-lost": "The desktop app stopped answering",
     "recorder-failed": "The session recording could not be written",
     "internal-error": "An internal error in the engine",
+    "no-response": "The controlled output did not answer the actuator",
+    "applied-mismatch": "The device applied another value than commanded",
 }
 
 #: device status bit -> words
