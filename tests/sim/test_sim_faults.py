@@ -269,3 +269,71 @@ def test_same_seed_same_faulty_run():
     assert trace(5) != trace(6)
     values = np.array([f is None for f in trace(5)])
     assert 0 < values.sum() < 200
+
+
+# --- faults of the sensor's sign, its wire, the rotor, the coupling and the device's clamp -------
+
+
+def test_new_kinds_parse_with_their_keys():
+    assert parse_fault("reverse:channel=speed_rpm,at=1").kind == "reverse"
+    assert parse_fault("disconnect:channel=speed_rpm,at=1").value == 0.0
+    assert parse_fault("disconnect:channel=speed_rpm,at=1,value=4095").value == 4095.0
+    assert parse_fault("locked-rotor:at=2").at_s == 2.0
+    assert parse_fault("slip:at=1,fraction=0.25").fraction == 0.25
+    assert parse_fault("device-clamp:at=0,value=30").value == 30.0
+    with pytest.raises(FaultSpecError, match="fraction between 0 and 1"):
+        parse_fault("slip:at=1,fraction=1.5")
+
+
+def test_reverse_counts_the_other_way_from_its_value_at_its_time():
+    plain, reversed_ = device(), device("reverse:channel=speed_rpm,at=0.5")
+    a, _ = run(plain, 100)
+    b, _ = run(reversed_, 100)
+    pivot = next(s.channels[0] for s in a if s.t_us == 500_000)
+    for sa, sb in zip(a, b):
+        if sa.t_us >= 500_000:
+            assert sb.channels[0] == pytest.approx(2 * pivot - sa.channels[0])
+        else:
+            assert sb.channels == sa.channels
+    assert b[-1].channels[0] < pivot < a[-1].channels[0]   # the fan speeds up, the reading falls
+
+
+def test_disconnect_reads_its_constant():
+    dev = device("disconnect:channel=speed_rpm,at=0.2,value=4095")
+    samples, _ = run(dev, 40)
+    assert {s.channels[0] for s in samples if s.t_us >= 200_000} == {4095.0}
+    assert dev.plant.read()[0] > 100.0                 # the fan itself spins on
+
+
+def test_locked_rotor_holds_speed_and_angle_and_draws_stall_current():
+    dev = device("locked-rotor:at=0.3")
+    samples, _ = run(dev, 200, u=50.0)
+    late = [s for s in samples if s.t_us >= 400_000]
+    assert all(s.channels[0] == pytest.approx(0.0, abs=2 * 8.0 * 5) for s in late)  # noise only
+    # stall current of a DC machine: V/R (Ohm's law with no back-EMF) = 12 V * 50 % / 6 ohm
+    # (2 %: the rotor is set back to rest at each tick, so a little back-EMF builds within one)
+    assert dev.plant.state[0] == pytest.approx(12.0 * 0.5 / 6.0, rel=0.02)
+    motor = make_plant("motor")
+    mdev = SimDevice(motor, channels=list(motor.channel_names), period_us=P,
+                     faults=FaultInjector(["locked-rotor:at=0"], channel_names=list(motor.channel_names)))
+    mdev.start(0)
+    mdev.handle(Configure(P, WD, 0.0, -12.0, 12.0), 0)
+    mdev.handle(Arm(), 0)
+    run(mdev, 100, u=12.0)
+    assert motor.state[1] == 0.0 and motor.state[2] == 0.0   # the shaft does not creep
+
+
+def test_slip_drives_the_plant_with_a_fraction_of_the_actuator():
+    """The steady speed under a 40 % slip at 80 % duty equals the plant's own steady state at
+    32 % duty (FanPlant.steady_state, the equilibrium of the model)."""
+    dev = device("slip:at=0,fraction=0.4")
+    run(dev, 600, u=80.0)                              # 6 s: about 9 mechanical time constants
+    expected = dev.plant.outputs(dev.plant.steady_state(32.0))[0]
+    assert dev.plant.read()[0] == pytest.approx(expected, rel=0.01)
+
+
+def test_device_clamp_applies_at_most_its_value():
+    dev = device("device-clamp:at=0.1,value=30")
+    samples, _ = run(dev, 30, u=80.0)
+    assert [s.applied for s in samples if s.t_us >= 100_000] == [30.0] * 21   # ticks 0.10 .. 0.30 s
+    assert all(s.applied in (0.0, 80.0) for s in samples if s.t_us < 100_000)

@@ -159,11 +159,16 @@ class PlantBase:
 
     #: Index of the rotor speed in the state (both plants are DC machines: ``[i, w, ...]``).
     speed_state_index = 1
+    #: Index of the shaft angle in the state, if the plant has one.
+    angle_state_index: int | None = None
 
-    def stop_rotor(self) -> None:
-        """Set the rotor speed to zero: a locked rotor (sim fault) is held there after every
-        advance, so the current rises to its stall value and the angle stays put."""
+    def stop_rotor(self, before: np.ndarray | None = None) -> None:
+        """Hold the rotor: speed zero and the angle back to ``before`` (the state before the last
+        advance). A locked rotor (sim fault) is held so after every advance: the current rises
+        to its stall value and the shaft does not creep."""
         self.state[self.speed_state_index] = 0.0
+        if before is not None and self.angle_state_index is not None:
+            self.state[self.angle_state_index] = before[self.angle_state_index]
 
     def read(self) -> np.ndarray:
         """Noise-free channel values as the rig's sensors deliver them (see ``outputs``)."""

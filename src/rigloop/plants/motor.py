@@ -70,6 +70,7 @@ class MotorPlant(PlantBase):
     nominal_quantum = {"position_rad": 0.0, "speed_rad_s": 0.01, "current_a": 0.001}
     relative_degree_quasi_static = {"position_rad": 2, "speed_rad_s": 1, "current_a": 1}
     relative_degree_full = {"position_rad": 3, "speed_rad_s": 2, "current_a": 1}
+    angle_state_index = 2
 
     def __init__(self, params: MotorParams | None = None) -> None:
         p = params if params is not None else MotorParams()

@@ -446,9 +446,11 @@ class SimDevice:
         if dt_us > 0:
             faults = self.faults
             drive = faults.drive(self.output, self.safe, now_us) if faults else self.output
+            locked = bool(faults) and faults.rotor_locked(now_us)
+            before = self.plant.state.copy() if locked else None
             self.plant.advance(drive, dt_us * 1e-6)
-            if faults and faults.rotor_locked(now_us):
-                self.plant.stop_rotor()
+            if locked:
+                self.plant.stop_rotor(before)
             self._plant_us = now_us
 
     def _to_safe(self, now_us: int) -> None:
