@@ -288,7 +288,10 @@ def test_suggestions_follow_the_documented_rules():
 
     snippet = yaml.safe_load(config_snippet(s))
     assert snippet == {"control": {"alpha": s.alpha, "kp": s.kp, "kd": s.kd,
-                                   "estimator": {"window_s": s.window_s}}}
+                                   "estimator": {"window_s": s.window_s}},
+                       "limits": {"plausibility": {"response_s": s.response_s}}}
+    # the plausibility response time: dead time + time constant + window (2 digits)
+    assert s.response_s == pytest.approx(s.pid_theta + est.tau + s.window_s, rel=0.05)
     assert snippet_overrides(s)[0] == f"control.alpha={s.alpha!r}"
 
 
@@ -374,7 +377,8 @@ def test_written_snippet_and_its_pid_block_pass_rigloop_check(fan_identified, ca
     text = snippet.read_text()
     tree = yaml.safe_load(text)
     assert set(_flatten(tree)) and {k.split("=")[0] for k in _flatten(tree)} == {
-        "control.alpha", "control.kp", "control.kd", "control.estimator.window_s"}
+        "control.alpha", "control.kp", "control.kd", "control.estimator.window_s",
+        "limits.plausibility.response_s"}
     sets = [a for kv in _flatten(tree) for a in ("--set", kv)]
     assert main(["check", DEMO_FAN, *sets]) == 0
     pid_lines = [line[2:] for line in text.splitlines() if line.startswith("#   ") or line == "# control:"]

@@ -687,6 +687,9 @@ class Suggestions:
     pid_tau_c: float
     pid_theta: float         # dead time used by the SIMC rules (sampling included)
     notes: list[str] = field(default_factory=list)
+    #: limits.plausibility.response_s: dead time + time constant + estimator window, the time
+    #: after which a change of the input has visibly reached the output
+    response_s: float | None = None
 
     def as_dict(self) -> dict:
         return asdict(self)
@@ -760,7 +763,8 @@ def suggest_settings(est: BumpEstimates, plan: BumpPlan, *, tau_cl: float | None
                      "rig needs a holding input")
     return Suggestions(est.order, law, alpha, tau_cl, rule, round_sig(kp, 3), round_sig(kd, 3),
                        round(n * ts, 9), n, sigma_f, target, round_sig(pid_kp, 3),
-                       round_sig(pid_ki, 3), round_sig(pid_kd, 3), u0, tau_cl, theta_eff, notes)
+                       round_sig(pid_ki, 3), round_sig(pid_kd, 3), u0, tau_cl, theta_eff, notes,
+                       round_sig(theta_eff + tau + n * ts, 2))
 
 
 def config_snippet(s: Suggestions, *, header: str = "") -> str:
@@ -779,6 +783,9 @@ def config_snippet(s: Suggestions, *, header: str = "") -> str:
         ("  estimator:", ""),
         (f"    window_s: {_num(s.window_s)}", f"{s.window_samples} samples, from the measured noise"),
     ]
+    if s.response_s is not None:
+        body += [("limits:", ""), ("  plausibility:", ""),
+                 (f"    response_s: {_num(s.response_s)}", "dead time + time constant + window")]
     width = max(len(text) for text, _ in body) + 2
     lines += [(text.ljust(width) + f"# {note}") if note else text for text, note in body]
     lines += [
@@ -795,8 +802,11 @@ def config_snippet(s: Suggestions, *, header: str = "") -> str:
 
 def snippet_overrides(s: Suggestions) -> list[str]:
     """The snippet's active keys as ``--set`` overrides (``KEY=VALUE``)."""
-    return [f"control.alpha={_num(s.alpha)}", f"control.kp={_num(s.kp)}", f"control.kd={_num(s.kd)}",
-            f"control.estimator.window_s={_num(s.window_s)}"]
+    out = [f"control.alpha={_num(s.alpha)}", f"control.kp={_num(s.kp)}", f"control.kd={_num(s.kd)}",
+           f"control.estimator.window_s={_num(s.window_s)}"]
+    if s.response_s is not None:
+        out.append(f"limits.plausibility.response_s={_num(s.response_s)}")
+    return out
 
 
 def _num(x: float) -> str:
