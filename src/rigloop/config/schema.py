@@ -151,7 +151,7 @@ class Integer(ValueType):
 
 @dataclass(frozen=True)
 class Flag(ValueType):
-    """true or false (YAML's yes/no/on/off are not accepted: they surprise people)."""
+    """true or false (YAML 1.1 also reads yes/no/on/off as these; quoted text is not a flag)."""
 
     def describe(self) -> str:
         return "true or false"
