@@ -361,6 +361,7 @@ MAX_DURATION_S_MAX = 604800.0  # one week; a longer unattended run needs its own
 COUNT_WINDOW_S_MAX = 60.0      # a burst window longer than a minute is no burst
 BLEND_S_MIN = 1e-6             # the wire's time resolution (1 us); shorter is a raw step
 CHANNEL_SCALE_MAX = 1e9        # raw values travel as float32: scale and offset keep them finite
+SIM_NOISE_MAX = 1000.0         # x nominal sensor noise; far past any rig, short of float overflow
 _BLEND = Number(gt=0, ge=BLEND_S_MIN)
 _NUM = Number()
 _POS = Number(gt=0)
@@ -389,7 +390,8 @@ SCHEMA: tuple[Key, ...] = (
     Key("device.sim.clock", Choice(("realtime", "lockstep")), "realtime",
         "realtime: samples on a wall-clock timer; lockstep: next sample as soon as the command "
         "arrives (deterministic, faster than real time)"),
-    Key("device.sim.noise", _NONNEG, 1.0, "sensor noise scale: 0 = none, 1 = nominal"),
+    Key("device.sim.noise", Number(ge=0, le=SIM_NOISE_MAX), 1.0,
+        "sensor noise scale: 0 = none, 1 = nominal"),
     Key("device.sim.seed", Integer(ge=0, le=2**32 - 1), 1, "random seed of noise and faults"),
     Key("device.sim.params", FreeMapping(), {},
         "plant parameter overrides by name (checked against the plant's parameters)"),
