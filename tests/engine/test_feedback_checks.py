@@ -161,3 +161,23 @@ def test_session_yaml_is_plain_yaml(tmp_path):
     result, _, _ = run_engine(cfg, tmp_path, duration_s=0.3)
     meta = yaml.safe_load((result.session_dir / "session.yaml").read_text())
     assert set(meta["noise_floor"]) == {"speed_rpm", "current_a", "airflow_m3h", "temp_c"}
+
+
+SCENARIOS = sorted((REPO / "configs" / "scenarios").glob("*.yaml"))
+
+
+@pytest.mark.parametrize("path", SCENARIOS, ids=[p.stem for p in SCENARIOS])
+def test_scenario_rigs_track_and_rest_without_a_trip(tmp_path, path):
+    """Rigs other than the demo fan (dead zone and delay, drifting and stepping load, friction,
+    backlash, a pulse tach, a heavy flywheel): every protection on, as shipped and at rest with
+    a noise-free sensor."""
+    from rigloop.config import load_config
+
+    base = ["device.sim.clock=lockstep", f"recording.dir={tmp_path / 'sessions'}"]
+    cfg = load_config(path, base)
+    assert cfg.limits.plausibility.enabled and cfg.limits.plausibility.applied
+    result, s, _ = run_engine(cfg, tmp_path, rx_log=False)
+    assert result.exit_code == 0, s.trip
+    rest = load_config(path, [*base, 'reference={"kind": "levels", "initial": 0}', "device.sim.noise=0"])
+    result, s, _ = run_engine(rest, tmp_path, duration_s=4.0, rx_log=False)
+    assert result.exit_code == 0, s.trip

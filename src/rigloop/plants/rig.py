@@ -236,6 +236,11 @@ class Rig:
         while self._pending and self._pending[0][0] <= t_end + 1e-12:
             self._drive_now = self._pending.popleft()[1]
 
+    def stop_rotor(self, before: np.ndarray | None = None) -> None:
+        """Hold the plant's rotor (a locked-rotor sim fault); the play follows the held shaft."""
+        self.inner.stop_rotor(before)
+        self._update_play()
+
     def _segment(self, drive: float, dt: float) -> None:
         self._apply_load()
         self.inner.advance(drive, dt)
