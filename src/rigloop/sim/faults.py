@@ -334,18 +334,22 @@ class FaultInjector:
                 self.counters["disconnected"] += 1
         return values
 
+    def _due(self, spec: FaultSpec, now_us: int) -> bool:
+        """Has the fault's time come?"""
+        return now_us >= spec.at_us
+
     # -- faults of the drive train (the device asks before it advances the plant) ---------------
     def rotor_locked(self, now_us: int) -> bool:
         """Is the rotor held at standstill at ``now_us`` (a ``locked-rotor`` fault)?"""
-        return any(now_us >= s.at_us for _, s in self._by_kind["locked-rotor"])
+        return any(self._due(s, now_us) for _, s in self._by_kind["locked-rotor"])
 
     def drive(self, u: float, safe: float, now_us: int) -> float:
         """The actuator value the plant receives: ``safe + fraction·(u − safe)`` while a ``slip``
         fault acts (the smallest fraction of those due), else ``u``."""
-        fractions = [s.fraction for _, s in self._by_kind["slip"] if now_us >= s.at_us]
+        fractions = [s.fraction for _, s in self._by_kind["slip"] if self._due(s, now_us)]
         return safe + min(fractions) * (u - safe) if fractions else u
 
     def applied_ceiling(self, now_us: int) -> float | None:
         """The device-side clamp of a ``device-clamp`` fault at ``now_us`` (None: none)."""
-        due = [s.value for _, s in self._by_kind["device-clamp"] if now_us >= s.at_us]
+        due = [s.value for _, s in self._by_kind["device-clamp"] if self._due(s, now_us)]
         return min(due) if due else None
