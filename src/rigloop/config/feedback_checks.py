@@ -116,7 +116,8 @@ def feedback_figures(cfg: Config) -> list:
         note = (f"noise {std:.3g} {units.get(name, '')} gives rate noise of about "
                 f"{floor / RATE_NOISE_SIGMAS:.3g} {unit}; rate_max {lim.rate_max:.4g} {unit}")
         if warn:
-            note += f" is below {floor:.4g} {unit} ({RATE_NOISE_SIGMAS:g} sigma): it will trip on noise - raise it"
+            note += (f" is below {floor:.4g} {unit} ({RATE_NOISE_SIGMAS:g} sigma): it will trip on "
+                     f"noise - raise it")
         out.append(Derived(f"{name} rate floor", floor, unit, note, warn))
     if stated.get(output) is None:
         out.append(Derived(f"{output} noise", None, "",

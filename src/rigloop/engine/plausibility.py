@@ -185,7 +185,6 @@ class ResponseMonitor:
         self._last_u = None
         self._same_since = None
         self._u_ref = None
-        self._u_at_limit_ref = False
 
     # ------------------------------------------------------------------------------------------
     def _push(self, y: float) -> float | None:
@@ -239,8 +238,8 @@ class ResponseMonitor:
             return None
         return Trip("no-response",
                     f"{self.channel} repeated {_g(y)} {self.unit} exactly {why}: a frozen or "
-                    f"disconnected sensor (value: seconds repeated, limit: frozen time)", t=t, channel=self.channel, value=held,
-                    limit=self.frozen_s)
+                    f"disconnected sensor (value: seconds repeated, limit: frozen time)",
+                    t=t, channel=self.channel, value=held, limit=self.frozen_s)
 
     def _at_limit(self, t, y, z, u, r) -> Trip | None:
         d = self._limit_side(u)
@@ -267,7 +266,8 @@ class ResponseMonitor:
             return Trip("no-response",
                         f"{self.channel} moved against {self.actuator} (at its limit {limit_text} for "
                         f"{_g(t - t0)} s, its {what} went the other way): a sensor counting the wrong "
-                        f"way, or alpha of the wrong sign (value: movement, limit: noise band)",
+                        f"way, alpha of the wrong sign, a slipping coupling or a load the actuator "
+                        f"cannot overcome (value: movement, limit: noise band)",
                         t=t, channel=self.channel, value=progress, limit=self.band_z)
         if at_safe:
             return None       # the actuator is off and the output is still: a rig at rest
@@ -275,8 +275,8 @@ class ResponseMonitor:
                     f"{self.channel} did not answer {self.actuator} at its limit {limit_text} for "
                     f"{_g(t - t0)} s (its {what} stayed inside its noise band): a frozen or "
                     f"disconnected sensor, a stalled rotor, a slipping coupling, or a reference out "
-                    f"of reach (value: movement, limit: noise band)", t=t, channel=self.channel, value=progress,
-                    limit=self.band_z)
+                    f"of reach (value: movement, limit: noise band)",
+                    t=t, channel=self.channel, value=progress, limit=self.band_z)
 
 
 class AppliedCheck:
