@@ -120,3 +120,35 @@ def test_reference_reaching_a_limit_warns_and_a_missing_output_limit_too():
     beyond = with_values(limited, {"reference": {"kind": "levels", "initial": 1000.0,
                                                  "steps": [{"at": 1.0, "to": 3100.0}]}})
     assert "reference vs limit" in warned(beyond)
+
+
+# --- feedback checks (config/feedback_checks.py) -------------------------------------------------
+
+
+def test_response_time_follows_the_law_and_the_window():
+    # iP: 5/Kp + window + 10 periods (default window: 10 periods at the default 100 Hz)
+    fig = figures(with_values(base(), {"control.kp": 4.0}))["response time"]
+    assert fig.value == pytest.approx(5 / 4.0 + 0.1 + 0.1)
+    # iPD: 5/sqrt(Kp) + estimator window twice (estimator and derivative) + 10 periods
+    mapping = with_values(base(), {"control.law": "iPD", "control.kp": 225.0, "control.kd": 30.0,
+                                   "device.rate_hz": 500, "control.estimator.window_s": 0.02})
+    assert figures(mapping)["response time"].value == pytest.approx(5 / 15.0 + 0.04 + 0.02)
+    given = with_values(base(), {"limits.plausibility.response_s": 0.7})
+    assert figures(given)["response time"].value == 0.7
+    assert figures(given)["frozen reading"].value == 0.7
+
+
+def test_rate_limit_is_judged_against_the_stated_noise():
+    """A stated noise of 8 rpm at 500 Hz: the six-sample slope's noise is 8*||c|| (||c||² =
+    12/(Ts² n(n+1)(n+2)), n = 5), and rate_max below 6 of those warns."""
+    ts = 1 / 500
+    sigma_rate = 8.0 * np.sqrt(12.0 / (ts ** 2 * 5 * 6 * 7))
+    noisy = {"device.link": "udp", "device.rate_hz": 500, "channels.0.noise_std": 8.0}
+    low = with_values(base(), {**noisy, "limits.speed_rpm.rate_max": 5.5 * sigma_rate})
+    high = with_values(base(), {**noisy, "limits.speed_rpm.rate_max": 6.5 * sigma_rate})
+    assert "speed_rpm rate floor" in warned(low)
+    assert "speed_rpm rate floor" not in warned(high)
+    assert figures(high)["speed_rpm rate floor"].value == pytest.approx(6 * sigma_rate)
+    unstated = with_values(base(), {"device.link": "udp", "limits.speed_rpm.rate_max": 100.0})
+    note = figures(unstated)["speed_rpm rate noise"].note
+    assert "measured before ARM" in note
