@@ -170,8 +170,7 @@ class SessionRecorder:
                 rows.flush()
             except OSError as exc:
                 self.failure = exc
-        if self.failure is not None:
-            raise self.failure
+                raise                       # at once: the engine stops the rig before anything else
 
     def close(self, *, outcome: str, stop_reason: str | None, trip: dict | None, summary: dict,
               plan: dict | None = None) -> None:
