@@ -245,3 +245,21 @@ def test_a_write_started_by_a_full_buffer_counts_as_the_recorders_failure(tmp_pa
     meta = yaml.safe_load((folder / "session.yaml").read_text())
     assert meta["outcome"] == "tripped" and "ENOSPC" in meta["recording_error"]
     assert (folder / "samples.csv").read_bytes().endswith(b"\n")
+
+
+def test_an_internal_error_is_a_recorded_trip_not_a_traceback(tmp_path, capsys, monkeypatch):
+    from rigloop.cli import main
+    from rigloop.engine.loop import Engine
+
+    def broken(self, now):
+        raise RuntimeError("injected")
+
+    monkeypatch.setattr(Engine, "_periodic", broken)
+    out = tmp_path / "sessions"
+    code = main(["run", str(DEMO_FAN), "--out", str(out), "--quiet", "--set", "device.sim.clock=lockstep"])
+    err = capsys.readouterr().err
+    assert code == 1 and "Traceback" not in err and "internal error (RuntimeError: injected)" in err
+    folder = next(out.iterdir())
+    meta = yaml.safe_load((folder / "session.yaml").read_text())
+    assert meta["outcome"] == "tripped" and meta["trip"]["cause"] == "internal-error"
+    assert "Traceback" in (folder / "engine.log").read_text()
