@@ -154,10 +154,14 @@ class SessionLifecycle:
 
     def run(self) -> RunResult:
         cfg = self.cfg
-        self._preflight()
-        self._setup_session()
         url = cfg.device.url
-        self._start_recording(url)
+        try:
+            self._preflight()
+            self._setup_session()
+            self._start_recording(url)
+        except SessionRefused:
+            self._teardown()
+            raise
         try:
             url = self._open_link()
             self.recorder.update_meta(device={"url": url, "hello": None})
