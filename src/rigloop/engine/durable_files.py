@@ -59,23 +59,16 @@ class ReservedTextFile:
         except OSError:
             _unlink_quietly(tmp)            # give back what the attempt took
         self.in_place_updates += 1
-        fd = os.open(self.path, os.O_WRONLY)
-        try:
+        with open(self.path, "r+b", buffering=0) as fh:   # same size: no new blocks needed
             view = memoryview(body)
-            offset = 0
-            while offset < len(view):
-                offset += os.pwrite(fd, view[offset:], offset)
-            os.fsync(fd)
-        finally:
-            os.close(fd)
+            while view:
+                view = view[fh.write(view):]
+            os.fsync(fh.fileno())
 
 
 def _write_new(path: Path, data: bytes) -> None:
     """Write ``path`` whole and fsync it; on failure remove it (no 0-byte leftovers)."""
-    try:
-        fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_TRUNC, 0o644)
-    except OSError:
-        raise
+    fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_TRUNC, 0o644)
     try:
         view = memoryview(data)
         while view:
