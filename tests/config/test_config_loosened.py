@@ -68,3 +68,29 @@ def test_a_switched_off_check_is_one_table_entry(monkeypatch):
     cfg = parse_config(with_values(base(), {"limits.link_errors.max": 0}))
     assert [(k, v) for _, k, v, _ in loosened(cfg)] == [("limits.link_errors.max", 0)]
     assert isinstance(entry, Loosening)
+
+
+def test_check_prints_the_expected_recording_size(run_cli, monkeypatch, tmp_path):
+    """rows = rate x run length (+1); bytes per row from the recorder's own format."""
+    from rigloop.engine import disk_budget
+
+    sets = ("--set", f"recording.dir={tmp_path}", "--set", "duration_s=10", "--set", "device.rate_hz=100")
+    code, out, _ = run_cli("check", str(DEMO_FAN), *sets)
+    line = next(ln for ln in out.splitlines() if "recording size" in ln)
+    assert code == 0 and "1001 rows x" in line and "(10 s at 100 Hz)" in line
+    assert not line.startswith("WARNING")
+    monkeypatch.setattr(disk_budget, "free_bytes", lambda folder: 1000)
+    code, out, _ = run_cli("check", str(DEMO_FAN), *sets)
+    line = next(ln for ln in out.splitlines() if "recording size" in ln)
+    assert code == 0 and line.startswith("WARNING") and "would be refused" in line
+
+
+def test_row_size_estimate_is_not_below_a_real_row():
+    """The estimate errs on the large side: a row of the recorder's format with ordinary values
+    is shorter."""
+    from rigloop.engine.disk_budget import row_bytes
+    from rigloop.engine.recorder import sample_row_format
+
+    real = sample_row_format(4) % (12.345678, 6172, 1200.0, 0.0, 1198.75, -1.25, 41.5, 41.5, -350.2,
+                                   "running", 1198.75, 0.62, 101.3, 24.8, 33, 0.0712, 18.4, 0)
+    assert row_bytes(4) >= len(real.encode())

@@ -35,6 +35,7 @@ REGRESSIONS = [
     ("reference.blend_s=1e-300", "reference.blend_s", ">= 1e-06"),
     ("control.estimator.window_s=1e308", "control.estimator.window_s", "more than 100000 samples"),
     ("channels.0.offset=1e308", "channels.0.offset", "<= 1e+09"),
+    ("actuator.max=1e300", "actuator.max", "<= 3.40282e+38"),
     ("device.sim.noise=1e308", "device.sim.noise", "<= 1000"),
     ("channels.0.scale=1e-300", "channels.0.scale", "overflow the wire's float32"),
     pytest.param("recording.dir=/proc/self", "recording.dir", "cannot be written",

@@ -24,28 +24,35 @@ def _run(tmp_path, capsys, *sets):
 def test_real_time_clock_asks_for_sched_fifo_and_says_what_it_got(tmp_path, capsys, monkeypatch):
     asked = []
 
-    def fake_raise_priority(realtime=True):           # the test process keeps its own scheduling
+    def fake_raise(realtime):                         # the test process keeps its own scheduling
         asked.append(realtime)
-        return "scheduling: SCHED_FIFO refused (Operation not permitted); nice -10 refused; running at normal priority"
+        return "scheduling: SCHED_FIFO refused (Operation not permitted); nice -10 obtained"
 
-    monkeypatch.setattr("rigloop.engine.priority.raise_priority", fake_raise_priority)
+    monkeypatch.setattr("rigloop.engine.priority._raise", fake_raise)
     code, console, meta = _run(tmp_path, capsys)
     assert code == 0 and asked == [True]
     assert "[scheduling] scheduling: SCHED_FIFO refused" in console
-    assert meta["scheduling"]["asked"] == "SCHED_FIFO"
+    assert meta["scheduling"]["asked"] == "SCHED_FIFO" and meta["scheduling"]["obtained"] == "nice -10"
     assert meta["scheduling"]["result"].startswith("SCHED_FIFO refused")
 
 
 def test_engine_realtime_false_declines_and_says_so(tmp_path, capsys, monkeypatch):
     asked = []
-    monkeypatch.setattr("rigloop.engine.priority.raise_priority", lambda realtime=True: asked.append(realtime))
+    monkeypatch.setattr("rigloop.engine.priority._raise", lambda realtime: asked.append(realtime))
     code, console, meta = _run(tmp_path, capsys, "engine.realtime=false")
     assert code == 0 and asked == []                  # not even the nice step
     assert "[scheduling]" in console and "engine.realtime: false" in console
-    assert meta["scheduling"]["asked"] == "none" and "normal priority" in meta["scheduling"]["result"]
+    assert meta["scheduling"]["asked"] == "none" and meta["scheduling"]["obtained"] == "normal"
 
 
-def test_lockstep_simulation_does_not_ask(tmp_path, capsys):
+def test_lockstep_simulation_does_not_ask(tmp_path, capsys, monkeypatch):
+    asked = []
+
+    def fake_raise(realtime):
+        asked.append(realtime)
+        return "scheduling: SCHED_FIFO not attempted; nice -10 refused (test); running at normal priority"
+
+    monkeypatch.setattr("rigloop.engine.priority._raise", fake_raise)
     code, console, meta = _run(tmp_path, capsys, "device.sim.clock=lockstep")
-    assert code == 0 and meta["scheduling"]["asked"] == "none"
+    assert code == 0 and asked == [False] and meta["scheduling"]["asked"] == "none"
     assert "lockstep" in meta["scheduling"]["result"]

@@ -361,6 +361,8 @@ MAX_DURATION_S_MAX = 604800.0  # one week; a longer unattended run needs its own
 COUNT_WINDOW_S_MAX = 60.0      # a burst window longer than a minute is no burst
 BLEND_S_MIN = 1e-6             # the wire's time resolution (1 us); shorter is a raw step
 CHANNEL_SCALE_MAX = 1e9        # raw values travel as float32: scale and offset keep them finite
+FLOAT32_MAX = 3.4028234663852886e38   # actuator values travel as float32 (CONFIGURE's clamps)
+_WIRE = Number(ge=-FLOAT32_MAX, le=FLOAT32_MAX)
 SIM_NOISE_MAX = 1000.0         # x nominal sensor noise; far past any rig, short of float overflow
 _BLEND = Number(gt=0, ge=BLEND_S_MIN)
 _NUM = Number()
@@ -465,9 +467,9 @@ SCHEMA: tuple[Key, ...] = (
     Key("actuator", Section(), REQUIRED, "the actuator the law drives"),
     Key("actuator.name", Text(NAME_PATTERN, NAME_DOC), "u", "actuator name, for labels"),
     Key("actuator.unit", Text(allow_empty=True), "", "actuator unit"),
-    Key("actuator.min", _NUM, REQUIRED, "lowest command; the host and the device clamp to it"),
-    Key("actuator.max", _NUM, REQUIRED, "highest command; the host and the device clamp to it"),
-    Key("actuator.safe", _NUM, REQUIRED,
+    Key("actuator.min", _WIRE, REQUIRED, "lowest command; the host and the device clamp to it"),
+    Key("actuator.max", _WIRE, REQUIRED, "highest command; the host and the device clamp to it"),
+    Key("actuator.safe", _WIRE, REQUIRED,
         "value commanded when idle, stopped or tripped; min <= safe <= max"),
     Key("actuator.slew_per_s", _POS, None,
         "largest change per second [unit/s]; null = no slew limit", nullable=True),

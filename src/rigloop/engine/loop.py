@@ -553,9 +553,9 @@ class Engine(SessionLifecycle, FrontEndRequests):
         if getattr(sub, "critical", False):
             self.subscribers.remove(sub)
             why = describe_os_error(exc) if isinstance(exc, OSError) else f"{type(exc).__name__}: {exc}"
-            log.error("recorder failed: %s", why)
             self._trip(Trip("recorder-failed", f"the recorder could not write ({why}); stopped rather "
-                                               f"than running unrecorded", t=self.t_last))
+                                               f"than running unrecorded", t=self.t_last))   # STOP first
+            log.error("recorder failed: %s", why)
         else:
             log.warning("display subscriber %r failed: %s (removed)", sub, exc)
             self.subscribers.remove(sub)
