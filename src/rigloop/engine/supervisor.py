@@ -198,9 +198,12 @@ class Supervisor:
         warnings = []
         if self.noise_floor is None:
             self.noise_floor = self.noise.floor()
+            stated_res = {c.name: getattr(c, "resolution", None) for c in self.cfg.channels}
             for name, entry in self.noise_floor.items():
                 if name in self.stated_noise:
                     entry["stated_std"] = self.stated_noise[name]
+                if stated_res.get(name):                 # channels[].resolution, when given
+                    entry["stated_resolution"] = stated_res[name]
             for g in self.guards:
                 if g.rate_max is None:
                     continue
@@ -215,7 +218,7 @@ class Supervisor:
             if self.response is not None:
                 entry = self.noise_floor[self.response.channel]
                 std = max(entry["std"], entry.get("stated_std") or 0.0)
-                self.response.set_noise(std, entry["resolution"])
+                self.response.set_noise(std, max(entry["resolution"], entry.get("stated_resolution") or 0.0))
         if self.response is not None:
             self.response.reset()
         if self.applied is not None:
