@@ -29,6 +29,7 @@ Everything here is a pure function of the samples it is given; the engine acts o
 from __future__ import annotations
 
 import math
+from collections import deque
 
 import numpy as np
 
@@ -180,6 +181,8 @@ class ResponseMonitor:
     def reset(self) -> None:
         self._count = 0
         self._pos = 0
+        self._sum = 0.0
+        self._ring = [0.0] * (self._n + 1)
         self._episode = None                    # (t0, z0, d, s, at_safe, passed)
         self._last_y = None
         self._last_u = None
@@ -189,10 +192,18 @@ class ResponseMonitor:
     # ------------------------------------------------------------------------------------------
     def _push(self, y: float) -> float | None:
         m = self._n + 1
-        self._buf[self._pos] = y
-        self._buf[self._pos + m] = y
-        self._pos = (self._pos + 1) % m
+        pos = self._pos
+        self._pos = (pos + 1) % m
         self._count += 1
+        if self.order == 1:                    # the window's mean: a running sum, renewed at wrap
+            ring = self._ring
+            self._sum += y - ring[pos]
+            ring[pos] = y
+            if self._pos == 0:
+                self._sum = math.fsum(ring)
+            return self._sum / m if self._count >= m else None
+        self._buf[pos] = y
+        self._buf[pos + m] = y
         if self._count < m:
             return None
         return float(self._w.dot(self._buf[self._pos:self._pos + m]))
@@ -295,7 +306,7 @@ class AppliedCheck:
         # float32 on the wire: 2^-23 relative, plus a part per million of the range
         self._tol_abs = 1e-6 * max(abs(self.u_max - self.u_min), 1e-9)
         self._sent: dict[int, float] = {}
-        self._order: list[int] = []
+        self._order: deque[int] = deque()
         self.reset()
 
     def reset(self) -> None:
@@ -308,7 +319,7 @@ class AppliedCheck:
         self._sent[seq] = value
         self._order.append(seq)
         if len(self._order) > 256:
-            self._sent.pop(self._order.pop(0), None)
+            self._sent.pop(self._order.popleft(), None)
 
     def check(self, t: float, last_cmd_seq: int, applied: float) -> Trip | None:
         want = self._sent.get(last_cmd_seq, self.safe)   # none of ours applied yet: safe
