@@ -182,3 +182,20 @@ def test_scenario_rigs_track_and_rest_without_a_trip(tmp_path, path):
     rest = load_config(path, [*base, 'reference={"kind": "levels", "initial": 0}', "device.sim.noise=0"])
     result, s, _ = run_engine(rest, tmp_path, duration_s=4.0, rx_log=False)
     assert result.exit_code == 0, s.trip
+
+
+@pytest.mark.parametrize("name", ["motor_speed_coulomb", "geared_arm_backlash"])
+def test_locked_rotor_on_rigs_with_imperfections_trips_no_response(tmp_path, name):
+    """Friction, backlash and a gear between the rotor and the reading: a locked rotor is still
+    seen (current limits lifted so that the plausibility check, not the current, decides)."""
+    from rigloop.config import load_config
+
+    path = REPO / "configs" / "scenarios" / f"{name}.yaml"
+    base = load_config(path)
+    lifted = [f"limits.{n}.{side}={v}" for n in base.limits.channels if n.startswith("current")
+              for side, v in (("min", -1000), ("max", 1000))]
+    cfg = load_config(path, ["device.sim.clock=lockstep", f"recording.dir={tmp_path / 'sessions'}",
+                             "device.sim.faults=['locked-rotor:at=1']", *lifted])
+    result, s, _ = run_engine(cfg, tmp_path, rx_log=False)
+    assert result.exit_code == 3
+    trip_row(s, "no-response")
