@@ -245,7 +245,8 @@ class Engine(SessionLifecycle, FrontEndRequests):
             if trip is not None:
                 self._trip(trip)
             elif self.state is State.IDLE:
-                self.supervisor.idle_sample(values)          # the noise floor, before ARM
+                if self.supervisor.idle_sample(values):      # the noise floor, before ARM
+                    self._noise_floor_fixed(self.supervisor.fix_noise_floor())
             r = dr = e = f_hat = math.nan
             state = self.state
             if state is State.RUNNING:
@@ -489,11 +490,17 @@ class Engine(SessionLifecycle, FrontEndRequests):
         self._feedback_checks_armed()
 
     def _feedback_checks_armed(self) -> None:
-        """Fix the noise floor (recorded in session.yaml) and restart the plausibility checks."""
+        """Restart the plausibility checks (fixing the noise floor if the idle samples did not)."""
         first = self.supervisor.noise_floor is None
-        for text in self.supervisor.on_arm():
+        warnings = self.supervisor.on_arm()
+        if first:
+            self._noise_floor_fixed(warnings)
+
+    def _noise_floor_fixed(self, warnings: list[str]) -> None:
+        """Record the noise floor in session.yaml and say which rate limits it makes doubtful."""
+        for text in warnings:
             self._emit(EventRecord("warning", text, t=self.t_last))
-        if first and self.recorder is not None:
+        if self.recorder is not None:
             self.recorder.update_meta(noise_floor=plain(self.supervisor.noise_floor))
 
     def _t_rel_now(self) -> float:

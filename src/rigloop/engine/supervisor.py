@@ -184,41 +184,51 @@ class Supervisor:
         self.applied = AppliedCheck(u_min=a.min, u_max=a.max, safe=a.safe, actuator=a.name,
                                     unit=a.unit) if plaus.applied else None
 
-    def idle_sample(self, values) -> None:
-        """A sample while not running: material for the noise floor."""
-        if not self.noise.done:
-            self.noise.add(values)
+    def idle_sample(self, values) -> bool:
+        """A sample while not running: material for the noise floor. True once, when the floor
+        has just been fixed (its warnings are then in :meth:`fix_noise_floor`'s return)."""
+        if self.noise_floor is not None:
+            return False
+        self.noise.add(values)
+        return self.noise.done
 
     @property
     def noise_ready(self) -> bool:
         return self.noise.done
 
-    def on_arm(self) -> list[str]:
-        """At ARM: fix the noise floor (first ARM), reset the monitors; return warnings to log."""
+    def fix_noise_floor(self) -> list[str]:
+        """Turn the idle samples into the noise floor (once) and set the checks' bands from it;
+        return the warnings about rate limits below the noise."""
+        if self.noise_floor is not None:
+            return []
         warnings = []
-        if self.noise_floor is None:
-            self.noise_floor = self.noise.floor()
-            stated_res = {c.name: getattr(c, "resolution", None) for c in self.cfg.channels}
-            for name, entry in self.noise_floor.items():
-                if name in self.stated_noise:
-                    entry["stated_std"] = self.stated_noise[name]
-                if stated_res.get(name):                 # channels[].resolution, when given
-                    entry["stated_resolution"] = stated_res[name]
-            for g in self.guards:
-                if g.rate_max is None:
-                    continue
-                entry = self.noise_floor[g.name]
-                std = max(entry["std"], entry.get("stated_std") or 0.0)
-                floor = RATE_NOISE_SIGMAS * std * rate_noise_gain(self.period_s)
-                if g.rate_max < floor:
-                    warnings.append(f"limits.{g.name}.rate_max {_fmt(g.rate_max)} {g.unit}/s is below "
-                                    f"{_fmt(floor)} {g.unit}/s, {RATE_NOISE_SIGMAS:g} sigma of the rate "
-                                    f"noise the sensor showed at rest (std {_fmt(std)} {g.unit}): it may "
-                                    f"trip on noise")
-            if self.response is not None:
-                entry = self.noise_floor[self.response.channel]
-                std = max(entry["std"], entry.get("stated_std") or 0.0)
-                self.response.set_noise(std, max(entry["resolution"], entry.get("stated_resolution") or 0.0))
+        self.noise_floor = self.noise.floor()
+        stated_res = {c.name: getattr(c, "resolution", None) for c in self.cfg.channels}
+        for name, entry in self.noise_floor.items():
+            if name in self.stated_noise:
+                entry["stated_std"] = self.stated_noise[name]
+            if stated_res.get(name):                 # channels[].resolution, when given
+                entry["stated_resolution"] = stated_res[name]
+        for g in self.guards:
+            if g.rate_max is None:
+                continue
+            entry = self.noise_floor[g.name]
+            std = max(entry["std"], entry.get("stated_std") or 0.0)
+            floor = RATE_NOISE_SIGMAS * std * rate_noise_gain(self.period_s)
+            if g.rate_max < floor:
+                warnings.append(f"limits.{g.name}.rate_max {_fmt(g.rate_max)} {g.unit}/s is below "
+                                f"{_fmt(floor)} {g.unit}/s, {RATE_NOISE_SIGMAS:g} sigma of the rate "
+                                f"noise the sensor showed at rest (std {_fmt(std)} {g.unit}): it may "
+                                f"trip on noise")
+        if self.response is not None:
+            entry = self.noise_floor[self.response.channel]
+            std = max(entry["std"], entry.get("stated_std") or 0.0)
+            self.response.set_noise(std, max(entry["resolution"], entry.get("stated_resolution") or 0.0))
+        return warnings
+
+    def on_arm(self) -> list[str]:
+        """At ARM: fix the noise floor if not yet done, reset the monitors; return warnings."""
+        warnings = self.fix_noise_floor()
         if self.response is not None:
             self.response.reset()
         if self.applied is not None:
