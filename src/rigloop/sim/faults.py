@@ -254,6 +254,10 @@ class FaultInjector:
     def __bool__(self) -> bool:
         return bool(self.specs)
 
+    def _due(self, spec: FaultSpec, now_us: int) -> bool:
+        """Has the fault's time come?"""
+        return now_us >= spec.at_us
+
     @property
     def ignore_stop(self) -> bool:
         return bool(self._by_kind["ignore-stop"])
@@ -333,10 +337,6 @@ class FaultInjector:
                 values[k] = spec.value
                 self.counters["disconnected"] += 1
         return values
-
-    def _due(self, spec: FaultSpec, now_us: int) -> bool:
-        """Has the fault's time come?"""
-        return now_us >= spec.at_us
 
     # -- faults of the drive train (the device asks before it advances the plant) ---------------
     def rotor_locked(self, now_us: int) -> bool:
