@@ -44,10 +44,11 @@ NOISE_BAND_SIGMAS = 4.0
 #: many noise bands (common practice: a margin of 4 against the band).
 FAR_FACTOR = 4.0
 #: ... and at least this fraction of the actuator range, so that a dead zone or breakaway
-#: friction (where F cancels alpha·u until the rotor breaks free) is not taken for a dead sensor.
+#: friction (where F cancels alpha·u until the rotor breaks free) is not taken for a dead sensor
+#: (common practice: the dead zones and breakaway of bench drives stay well below a quarter).
 FAR_MIN_FRACTION = 0.25
 #: An error "far from zero" for the frozen check: this fraction of the output's span (its limits,
-#: else the reference's range) — far above what a loop at rest leaves behind.
+#: else the reference's range) — far above what a loop at rest leaves behind (common practice).
 ERROR_FAR_FRACTION = 0.05
 #: Samples measured before ARM: about 0.2 s of the rig at rest, at least 16 and at most 64.
 NOISE_SAMPLES_MIN, NOISE_SAMPLES_MAX, NOISE_SECONDS = 16, 64, 0.2
@@ -55,7 +56,7 @@ NOISE_SAMPLES_MIN, NOISE_SAMPLES_MAX, NOISE_SECONDS = 16, 64, 0.2
 #: noise is ``σ·‖c‖`` (kernels.slope_weights); a single spike of height h reads ``h/(7·Ts)``.
 RATE_WINDOW_INTERVALS = 5
 #: rate_max below this many standard deviations of the slope's noise would trip on noise
-#: (common practice: 6σ, about one false trip in 10^9 samples for Gaussian noise).
+#: (common practice: 6σ, about one false trip in 5·10^8 samples for Gaussian noise).
 RATE_NOISE_SIGMAS = 6.0
 #: MAD of a normal variable in standard deviations (Φ⁻¹(3/4), a standard constant).
 _MAD_TO_STD = 0.6744897501960817
