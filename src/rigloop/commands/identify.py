@@ -1,11 +1,13 @@
 """``rigloop identify CONFIG``: the automatic bump test (docs/reports.md, "Bump test").
 
-Steps the actuator open loop around an operating level — through the engine, so every limit,
-watchdog, the clamp and the slew limit stay active — records the session like any other, then
-estimates alpha, a first-order-plus-dead-time model and the noise, and suggests settings.
+Ramps the actuator slowly to an operating level and steps it both ways around it, open loop —
+through the engine, so every limit, watchdog, the clamp and the slew limit stay active — records
+the session like any other, then estimates alpha, a first-order-plus-dead-time model, the noise
+floor and the dead zone, judges whether the estimates hold together, and suggests settings.
 
-Exit codes: 0 done, 1 internal error or estimation failed (the message says why), 2 config or
-usage error (nothing moved), 3 tripped (nothing estimated), 130 stopped by Ctrl-C or SIGTERM.
+Exit codes: 0 done, 1 internal error, estimation failed or refused (the message says why and
+what to try; no snippet is printed), 2 config or usage error (nothing moved), 3 tripped (nothing
+estimated), 130 stopped by Ctrl-C or SIGTERM.
 """
 
 from __future__ import annotations
@@ -23,9 +25,8 @@ from rigloop.exit_codes import EXIT_OK, EXIT_SIGNAL, EXIT_TRIPPED, EXIT_USAGE
 from rigloop.plain_data import plain
 
 NAME = "identify"
-HELP = ("bump test: step the actuator around an operating level (open loop, every limit active), "
-        "estimate alpha and a FOPDT model, suggest gains and an estimator window")
-
+HELP = ("bump test: ramp the actuator to an operating level and step it both ways (open loop, every "
+        "limit active), estimate alpha and a FOPDT model, suggest gains and an estimator window")
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -39,9 +40,17 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--settle", type=float, metavar="S",
                         help="hold at u0 before the first step, s (default 4)")
     parser.add_argument("--hold", type=float, metavar="S", help="hold after each step, s (default 3)")
+    parser.add_argument("--ramp", type=float, metavar="S",
+                        help="duration of the slow ramp from the safe value to the operating level, "
+                             "s (default 4; never faster than the slew limit); it shows a dead zone")
+    parser.add_argument("--steps", type=int, metavar="N",
+                        help="number of steps, even (default: as many as --budget allows, up to 8)")
+    parser.add_argument("--budget", type=float, metavar="S",
+                        help="time budget of the whole test, s (default 30, and below "
+                             "limits.max_duration_s)")
     parser.add_argument("--tau-cl", type=float, metavar="S", dest="tau_cl",
                         help="wanted closed-loop time constant, s (default: the fitted tau / 5, at "
-                             "least 5 sample periods)")
+                             "least 5 sample periods and 3x the loop's dead time)")
     parser.add_argument("--write", metavar="FILE", help="also write the YAML config snippet to FILE")
     parser.add_argument("--out", metavar="DIR", help="folder for the session recording (overrides recording.dir)")
     parser.add_argument("--json", action="store_true", help="print one JSON object instead of the text")
@@ -72,6 +81,7 @@ def run(args: argparse.Namespace) -> int:
     try:
         plan = plan_bump(a.min, a.max, a.safe, a.slew_per_s, rate_hz=cfg.device.rate_hz, at=args.at,
                          step=args.step, settle_s=args.settle, hold_s=args.hold,
+                         ramp_s=args.ramp, steps=args.steps, budget_s=args.budget,
                          max_duration_s=cfg.limits.max_duration_s, unit=a.unit)
     except PlanError as exc:
         return _usage(str(exc))
@@ -88,9 +98,10 @@ def run_bump_test(cfg, plan, *, tau_cl=None, out_dir=None, write=None, as_json=F
     stream = stream or sys.stdout
     a = cfg.actuator
     unit = f" {a.unit}" if a.unit else ""
-    print(f"bump test on {cfg.rig}: {a.name} {plan.safe:g} -> {plan.u0:g}{unit}, step "
-          f"{plan.du:+g}{unit} and back, {plan.duration_s:.3g} s. The rig moves on its own: keep the "
-          "hardwired e-stop within reach (safety.md); Ctrl-C stops at once.", file=sys.stderr)
+    print(f"bump test on {cfg.rig}: {a.name} {plan.safe:g} -> {plan.u0:g}{unit} over "
+          f"{plan.ramp_s:.3g} s, {plan.steps} steps of ±{abs(plan.du):g}{unit} around it, "
+          f"{plan.duration_s:.3g} s. The rig moves on its own: keep the hardwired e-stop within "
+          "reach (safety.md); Ctrl-C stops at once.", file=sys.stderr)
     engine = Engine(cfg, out_dir=out_dir, duration_s=plan.duration_s, autostart=True, front_end="cli",
                     open_loop=plan)
     console = None
@@ -140,7 +151,7 @@ def run_bump_test(cfg, plan, *, tau_cl=None, out_dir=None, write=None, as_json=F
 
 def _estimate_and_report(cfg, plan, session, *, tau_cl, write, as_json, stream) -> int:
     from rigloop.analysis.identify import (
-        EstimationError, PlanError, analyse_bump, config_snippet, suggest_settings,
+        EstimationError, PlanError, analyse_bump, config_snippet, judge, suggest_settings,
     )
     from rigloop.analysis.session import SessionError, load_session
 
@@ -154,23 +165,26 @@ def _estimate_and_report(cfg, plan, session, *, tau_cl, write, as_json, stream) 
             raise EstimationError("the session holds no running rows")
         est = analyse_bump(t - t[0], y, u, order=cfg.control.order, plan=plan, ts=cfg.period_s,
                            output=cfg.control.output)
-        sugg = suggest_settings(est, plan, tau_cl=tau_cl)
+        refusals, notes = judge(est, plan)
+        sugg = None if refusals else suggest_settings(est, plan, kind=cfg.control.estimator.kind,
+                                                      tau_cl=tau_cl)
     except (EstimationError, SessionError, PlanError) as exc:
         print(f"rigloop identify: estimation failed: {exc}\nsession: {session}", file=sys.stderr)
         _record(session, {"plan": plan.as_dict(), "error": str(exc)})
         return EXIT_FAILED
     header = (f"rigloop identify {cfg.rig}: {cfg.control.output} (order {est.order}) around "
-              f"{cfg.actuator.name} = {plan.u0:g}, step {plan.du:+g}; session {Path(session).name}")
-    snippet = config_snippet(sugg, header=header)
+              f"{cfg.actuator.name} = {plan.u0:g}, steps of ±{abs(plan.du):g}; session {Path(session).name}")
+    snippet = config_snippet(sugg, header=header) if sugg is not None else None
     report = {
         "session": str(session), "rig": cfg.rig, "output": cfg.control.output,
         "output_unit": _unit(cfg, cfg.control.output), "actuator": cfg.actuator.name,
         "actuator_unit": cfg.actuator.unit, "plan": plan.as_dict(), "estimates": est.as_dict(),
-        "suggestions": sugg.as_dict(), "snippet": snippet, "warnings": list(est.warnings),
-        "written": None,
+        "refusals": [r.as_dict() for r in refusals],
+        "suggestions": sugg.as_dict() if sugg is not None else None, "snippet": snippet,
+        "warnings": list(est.warnings) + notes, "written": None,
     }
-    code = EXIT_OK
-    if write:
+    code = EXIT_OK if sugg is not None else EXIT_FAILED
+    if write and snippet is not None:
         try:
             Path(write).write_text(snippet, encoding="utf-8")
             report["written"] = str(write)
@@ -182,8 +196,13 @@ def _estimate_and_report(cfg, plan, session, *, tau_cl, write, as_json, stream) 
     if as_json:
         stream.write(json.dumps(plain(report), indent=2) + "\n")
     else:
-        stream.write(render_text(cfg, plan, est, sugg, snippet, session, report["written"]))
+        stream.write(render_text(cfg, plan, est, sugg, snippet, session, report["written"],
+                                 refusals=refusals, notes=report["warnings"]))
     stream.flush()
+    if refusals:
+        lines = "\n".join(f"  - {r.reason}; try: {r.advice}" for r in refusals)
+        print(f"rigloop identify: refused, the estimates do not hold together (no settings "
+              f"suggested):\n{lines}\nsession: {session}", file=sys.stderr)
     return code
 
 
@@ -217,8 +236,9 @@ def _g(x, digits: int = 4) -> str:
     return f"{x:.{digits}g}"
 
 
-def render_text(cfg, plan, est, sugg, snippet: str, session, written) -> str:
-    """The human-readable summary: what was done, each estimate with its unit, the suggestions."""
+def render_text(cfg, plan, est, sugg, snippet, session, written, *, refusals=(), notes=()) -> str:
+    """The human-readable summary: what was done, each estimate with its unit, the suggestions
+    (or the refusals and what to try)."""
     from rigloop.analysis.identify import NOISE_FRACTION
 
     a = cfg.actuator
@@ -234,28 +254,45 @@ def render_text(cfg, plan, est, sugg, snippet: str, session, written) -> str:
     w(f"  session   {session}\n")
     slew = (f"slew-limited at {plan.slew_per_s:g} {au}/s ({plan.slew_time_s:.3g} s per step)"
             if plan.slew_per_s else "no slew limit")
-    w(f"  profile   ramp {plan.safe:g} -> {plan.u0:g} {au} ({plan.t_ramp:.3g} s), hold {plan.settle_s:g} s, "
-      f"step {plan.du:+g} {au}, hold {plan.hold_s:g} s, back to {plan.u0:g}, hold {plan.hold_s:g} s; {slew}\n")
+    w(f"  profile   ramp {plan.safe:g} -> {plan.u0:g} {au} ({plan.ramp_s:.3g} s), hold {plan.settle_s:g} s, "
+      f"{plan.steps} steps of ±{abs(plan.du):g} {au} around {plan.u0:g}, {plan.hold_s:g} s each; {slew}\n")
     w(f"  sample period {est.ts * 1000:.4g} ms\n\n")
-    w("Estimates                                   up          down        mean\n")
-    up, dn = (est.steps + [None, None])[:2]
+    w(f"Estimates per step{'':<26}" + "".join(f"{f'{k + 1} {s.direction}':>10}" for k, s in enumerate(est.steps))
+      + "   mean ± spread\n")
 
-    def row(label, attr, mean, unit):
-        vals = [getattr(s, attr) if s is not None and s.responded else None for s in (up, dn)]
-        w(f"  {label:<40} {_g(vals[0]):>10}  {_g(vals[1]):>10}  {_g(mean):>10}  {unit}\n")
+    def row(label, attr, mean=None, spread=None, unit=""):
+        vals = [getattr(s, attr) if s.responded else None for s in est.steps]
+        summary = "" if mean is None else f"{_g(mean):>10}" + (f" ± {_g(spread, 2)}" if spread is not None else "")
+        w(f"  {label:<42}" + "".join(f"{_g(v, 3):>10}" for v in vals) + f"   {summary}  {unit}\n")
 
-    row("alpha (initial slope per unit du)", "alpha", est.alpha, f"{rate_unit} per {au}")
-    row("  without the drift correction", "alpha_uncorrected", None, f"{rate_unit} per {au}")
-    row("gain K" + (" of the rate (output integrates)" if m == 2 else ""), "gain", est.gain, gain_unit)
-    row("time constant tau", "tau", est.tau, "s")
-    row("dead time theta", "theta", est.theta, "s")
-    row("FOPDT fit residual (RMS)", "fit_rms", None, yu)
-    row("slope window after the step", "window_s", None, "s")
-    w(f"  {'alpha implied by the fit, K/tau':<40} {'':>10}  {'':>10}  {_g(est.alpha_fopdt):>10}  "
-      f"{rate_unit} per {au}\n")
-    w(f"  {'noise (std of y, detrended, first hold)':<40} {'':>10}  {'':>10}  {_g(est.noise_std):>10}  {yu}\n")
+    row("alpha (initial slope per unit du)", "alpha", est.alpha, est.alpha_spread, f"{rate_unit} per {au}")
+    row("  without the correction for the motion", "alpha_uncorrected", unit=f"{rate_unit} per {au}")
+    row("static gain K (fit)" + (" of the rate" if m == 2 else ""), "gain_fit", est.gain, est.gain_spread,
+        gain_unit)
+    row("  from the steady levels, drift removed", "gain", est.gain_levels, unit=gain_unit)
+    row("time constant tau", "tau", est.tau, unit="s")
+    row("dead time theta", "theta", est.theta, unit="s")
+    row("drift (level or rate per s)", "drift", unit=f"{yu}/s" if m == 1 else f"{rate_unit}")
+    w(f"  {'alpha implied by the fit, K/tau':<42}{_g(est.alpha_fopdt):>10}  {rate_unit} per {au}\n")
+    for label, sp in (("alpha of the steps up", est.alpha_up), ("alpha of the steps down", est.alpha_down)):
+        if sp is not None:
+            w(f"  {label:<42}{_g(sp.mean):>10} ± {_g(sp.spread, 2)} ({sp.n} steps)\n")
+    w(f"  {'noise floor':<42}{_g(est.noise_std):>10}  {yu} ({est.noise.source})\n")
+    dz = est.dead_zone
+    if dz is not None and dz.u_start is not None:
+        w(f"  {'output starts to move on the ramp at':<42}{_g(dz.u_start):>10}  {au}"
+          f"{' (a dead zone)' if dz.found else ''}\n")
     if m == 2:
         w("  (an integrating output has no static gain: K and tau describe its rate)\n")
+    if notes:
+        w("\nNotes\n")
+        for n in notes:
+            w(f"  - {n}\n")
+    if sugg is None:
+        w("\nRefused: the estimates do not hold together, so no settings are suggested\n")
+        for r in refusals:
+            w(f"  - {r.reason}\n    try: {r.advice}\n")
+        return "".join(out)
     w(f"\nSuggestions for the model-free law ({sugg.law})\n")
     w(f"  alpha     {_g(sugg.alpha)} {rate_unit} per {au}\n")
     if m == 1:
@@ -263,17 +300,14 @@ def render_text(cfg, plan, est, sugg, snippet: str, session, written) -> str:
     else:
         w(f"  kp, kd    {_g(sugg.kp)} 1/s², {_g(sugg.kd)} 1/s   omega = 1/tau_cl = {_g(1 / sugg.tau_cl, 3)} "
           f"rad/s, zeta = 1 (tau_cl {_g(sugg.tau_cl, 3)} s, {sugg.tau_cl_rule})\n")
-    w(f"  window_s  {_g(sugg.window_s)} s ({sugg.window_samples} samples): F noise about "
-      f"{_g(sugg.sigma_f, 3)} {rate_unit}, target {_g(sugg.sigma_f_target, 3)} "
+    w(f"  window_s  {_g(sugg.window_s)} s ({sugg.window_samples} samples, {sugg.estimator_kind}): F noise "
+      f"about {_g(sugg.sigma_f, 3)} {rate_unit}, target {_g(sugg.sigma_f_target, 3)} "
       f"({100 * NOISE_FRACTION:g} % of |alpha du|)\n")
     w(f"PID baseline (SIMC rules, tau_c = {_g(sugg.pid_tau_c, 3)} s, theta with sampling "
       f"{_g(sugg.pid_theta, 3)} s)\n")
     w(f"  kp {_g(sugg.pid_kp)}  ki {_g(sugg.pid_ki)}  kd {_g(sugg.pid_kd)}  pid_u0 {_g(sugg.pid_u0)}\n")
-    notes = list(est.warnings) + list(sugg.notes)
-    if notes:
-        w("\nNotes\n")
-        for n in notes:
-            w(f"  - {n}\n")
+    for n in sugg.notes:
+        w(f"  - {n}\n")
     w("\nConfig snippet" + (f" (written to {written})" if written else "") + ":\n\n")
     w(snippet)
     return "".join(out)
