@@ -18,6 +18,8 @@ class SimConfig:
     params: dict
     params_file: Path | None      # absolute (resolved against the config file's folder)
     faults: tuple[str, ...]
+    rig: dict = field(default_factory=dict)        # device.sim.rig (rigloop.plants.rig_config)
+    sensors: dict = field(default_factory=dict)    # device.sim.sensors
 
     def plant_params(self) -> dict:
         """Parameters for the plant: the file's values, overridden by ``params`` key by key."""
@@ -171,6 +173,22 @@ class Config:
         return copy.deepcopy(self.raw)
 
 
+def _rig_options(rig: dict) -> dict:
+    """``device.sim.rig`` with default-valued entries left out (an unchanged plant: {})."""
+    from rigloop.config.schema import KEYS
+
+    out: dict = {}
+    for key, value in rig.items():
+        if key == "load":
+            load = {k: v for k, v in value.items()
+                    if v != KEYS[f"device.sim.rig.load.{k}"].default}
+            if load:
+                out["load"] = load
+        elif value != KEYS[f"device.sim.rig.{key}"].default:
+            out[key] = value
+    return out
+
+
 def build_config(root: dict, *, source_path: Path | None, base_dir: Path, url: str) -> Config:
     """Typed objects from a mapping that passed validation (no INVALID left in it)."""
     dev = root["device"]
@@ -182,7 +200,8 @@ def build_config(root: dict, *, source_path: Path | None, base_dir: Path, url: s
         sim=SimConfig(plant=sim["plant"], clock=sim["clock"], noise=sim["noise"], seed=sim["seed"],
                       params=dict(sim["params"]),
                       params_file=Path(params_file) if params_file else None,
-                      faults=tuple(sim["faults"])),
+                      faults=tuple(sim["faults"]), rig=_rig_options(sim.get("rig") or {}),
+                      sensors={k: dict(v) for k, v in (sim.get("sensors") or {}).items()}),
         udp=UdpConfig(**dev["udp"]),
         serial=SerialConfig(**dev["serial"]),
     )

@@ -436,6 +436,29 @@ def simulated_rig_matches_plant(ctx: RuleContext) -> Iterator[Problem]:
 
 
 @rule
+def simulated_rig_options_fit_plant(ctx: RuleContext) -> Iterator[Problem]:
+    """``device.sim.rig`` options the plant cannot have (a gear on the fan ...)."""
+    if get(ctx.root, "device.link") != "sim":
+        return
+    plant, rig = get(ctx.root, "device.sim.plant"), get(ctx.root, "device.sim.rig")
+    if not _valid(plant, rig) or _has_invalid(rig):
+        return
+    try:
+        from rigloop.config.model import _rig_options
+        from rigloop.plants.rig_config import build_rig
+    except ImportError:
+        return
+    from rigloop.plants.rig import RigOptionError
+
+    try:
+        build_rig(plant, None, _rig_options(rig))
+    except RigOptionError as error:
+        yield Problem(f"device.sim.rig.{error.key}", error.value, error.why)
+    except (ValueError, TypeError) as error:
+        yield Problem("device.sim.rig", _rig_options(rig), str(error).strip("'\""))
+
+
+@rule
 def faults_parse(ctx: RuleContext) -> Iterator[Problem]:
     faults = get(ctx.root, "device.sim.faults")
     if not isinstance(faults, list):
