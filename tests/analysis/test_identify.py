@@ -28,9 +28,11 @@ import yaml
 from scipy import signal as sps
 
 from rigloop.analysis.identify import (
+    BumpDriver,
     BumpPlan,
     EstimationError,
     PlanError,
+    Schedule,
     analyse_bump,
     config_snippet,
     default_operating_point,
@@ -86,21 +88,25 @@ def lsim_fopdt(order: int, k: float, tau: float, theta: float, t: np.ndarray, u:
     return yf[::fine]
 
 
-def slewed_bump(plan: BumpPlan, ts: float) -> tuple[np.ndarray, np.ndarray]:
-    """(t, applied u) of a bump profile after a slew limiter, one sample of transport delay."""
-    n = int(round(plan.duration_s / ts)) + 1
+def slewed_bump(plan: BumpPlan, ts: float) -> tuple[np.ndarray, np.ndarray, Schedule]:
+    """(t, applied u, schedule) of a fixed-hold bump profile after a slew limiter, one sample of
+    transport delay (the profile needs no output: every hold lasts its fixed length)."""
+    assert plan.fixed
+    driver = BumpDriver(plan, ts)
+    n = int(round(plan.duration_s / ts)) + 2
     t = np.arange(n) * ts
     u = np.empty(n)
     prev = plan.safe
     for i, ti in enumerate(t):
-        target = plan(ti - ts) if i else plan.safe
+        target = driver(ti - ts) if i else plan.safe
         step = plan.slew_per_s * ts if plan.slew_per_s else math.inf
         prev = prev + max(-step, min(step, target - prev))
         u[i] = prev
-    return t, u
+    return t, u, driver.schedule()
 
 
 def fan_like_plan(**kw) -> BumpPlan:
+    """A fixed-hold profile (a function of time alone: the synthetic records need no feedback)."""
     args = dict(rate_hz=500.0, at=50.0, step=10.0, settle_s=3.0, hold_s=2.5, ramp_s=2.0, steps=4)
     args.update(kw)
     return plan_bump(0.0, 100.0, 0.0, 250.0, **args)
@@ -108,14 +114,14 @@ def fan_like_plan(**kw) -> BumpPlan:
 
 def first_order_record(plan: BumpPlan, ts: float, k: float, tau: float, theta: float = 0.0, *,
                        order: int = 1, sigma: float = 0.0, seed: int = 0, dead_zone: float = 0.0,
-                       base: float = 0.0) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """(t, y, applied u) of a linear plant (lsim) driven by the bump profile; the plant sees
-    ``max(u − dead_zone, 0)``; white noise of ``sigma`` on y."""
-    t, u = slewed_bump(plan, ts)
+                       base: float = 0.0) -> tuple[np.ndarray, np.ndarray, np.ndarray, Schedule]:
+    """(t, y, applied u, schedule) of a linear plant (lsim) driven by the bump profile; the plant
+    sees ``max(u − dead_zone, 0)``; white noise of ``sigma`` on y."""
+    t, u, sched = slewed_bump(plan, ts)
     y = base + lsim_fopdt(order, k, tau, theta, t, np.maximum(u - dead_zone, 0.0))
     if sigma:
         y = y + np.random.default_rng(seed).normal(0.0, sigma, t.size)
-    return t, y, u
+    return t, y, u, sched
 
 
 # ------------------------------------------------------------------------------- planning
@@ -123,31 +129,77 @@ def test_default_operating_point_is_the_middle_or_halfway_to_max_for_a_bipolar_d
     assert default_operating_point(0.0, 100.0, 0.0) == 50.0          # fan duty: safe is "off"
     assert default_operating_point(-12.0, 12.0, 0.0) == 6.0          # motor: safe is the middle
     plan = plan_bump(0.0, 100.0, 0.0, 250.0, rate_hz=500.0)
-    assert (plan.u0, plan.du, plan.settle_s, plan.hold_s, plan.ramp_s) == (50.0, 10.0, 4.0, 3.0, 4.0)
-    # the default budget of 30 s leaves 22 s after the ramp and the settle hold: 6 steps of 3 s
-    assert plan.steps == 6 and plan.duration_s == pytest.approx(26.0)
+    assert (plan.u0, plan.du, plan.ramp_s, plan.steps, plan.budget_s) == (50.0, 10.0, 4.0, 6, 120.0)
+    assert not plan.fixed and plan.duration_s == 120.0 and plan.hold_min_s == 1.0
 
 
-def test_profile_ramps_slowly_then_steps_both_ways_around_u0():
-    plan = plan_bump(0.0, 100.0, 0.0, 250.0, rate_hz=500.0, at=40.0, step=-5.0, ramp_s=2.0, steps=4)
-    assert plan(0.0) == 0.0 and plan(1.0) == pytest.approx(20.0) and plan(2.0) == 40.0
-    t1 = plan.t_first
-    assert t1 == pytest.approx(2.0 + 4.0)
-    levels = [plan(t1 + k * plan.hold_s + 0.5) for k in range(4)]
+def test_a_fixed_profile_ramps_slowly_then_steps_both_ways_around_u0():
+    plan = plan_bump(0.0, 100.0, 0.0, 250.0, rate_hz=500.0, at=40.0, step=-5.0, ramp_s=2.0, steps=4,
+                     settle_s=4.0, hold_s=3.0)
+    assert plan.fixed and plan.duration_s == pytest.approx(2.0 + 4.0 + 4 * 3.0)
+    driver = BumpDriver(plan, 0.002)
+    times = np.arange(0.0, plan.duration_s + 1.0, 0.002)
+    u = np.array([driver(t) for t in times])
+    assert u[0] == 0.0 and u[500] == pytest.approx(20.0) and u[1000] == 40.0
+    levels = [u[int((6.0 + k * 3.0 + 0.5) / 0.002)] for k in range(4)]
     assert levels == [35.0, 40.0, 45.0, 40.0]          # down first, back, up, back
-    assert plan(plan.duration_s + 5) == 40.0
-    assert [tr[1:] for tr in plan.transitions()] == [(40.0, 35.0), (35.0, 40.0), (40.0, 45.0), (45.0, 40.0)]
+    sched = driver.schedule()
+    assert driver.finished and sched.starts == pytest.approx([6.0, 9.0, 12.0, 15.0], abs=0.003)
+    assert sched.t_end == pytest.approx(18.0, abs=0.003) and u[-1] == 40.0
     # the ramp is never faster than the slew limit: 40 % at 250 %/s takes 0.16 s
     assert plan_bump(0.0, 100.0, 0.0, 250.0, rate_hz=500.0, at=40.0, ramp_s=0.0).ramp_s == pytest.approx(0.16)
 
 
+def _play(plan: BumpPlan, ts: float, k: float, tau: float, limits=(None, None), order: int = 1):
+    """Play the profile against y' = (−y + K·u)/τ (exact ZOH steps; order 2: the output is the
+    integral of that y), the output observed."""
+    driver = BumpDriver(plan, ts, order, limits)
+    y, pos, u, t = 0.0, 0.0, plan.safe, 0.0
+    a = math.exp(-ts / tau)
+    while not driver.finished and t < plan.duration_s + 1.0:
+        driver.observe(t, y if order == 1 else pos)
+        u = driver(t)
+        pos += ts * y
+        y = a * y + (1 - a) * k * u
+        t += ts
+    return driver
+
+
+def test_holds_last_until_settled_about_five_time_constants():
+    plan = plan_bump(0.0, 100.0, 0.0, None, rate_hz=500.0, at=50.0, ramp_s=1.0)
+    for tau in (0.2, 0.8):
+        driver = _play(plan, 0.002, 30.0, tau)
+        holds = driver.hold_lengths
+        assert len(driver.starts) == 6 and driver.finished
+        # a first-order response is within 1 % of its level after 4.6 τ; held 5–7 τ
+        assert all(4.6 * tau <= h <= 7.0 * tau or h == pytest.approx(1.0, abs=0.01) for h in holds), holds
+
+
+def test_a_slow_rig_gets_fewer_longer_steps_within_the_budget():
+    plan = plan_bump(0.0, 100.0, 0.0, None, rate_hz=100.0, at=50.0, ramp_s=1.0, budget_s=60.0)
+    driver = _play(plan, 0.01, 30.0, 8.0)           # τ = 8 s: 5 τ = 40 s will not fit twice
+    assert len(driver.starts) == 2 and driver.finished
+    assert driver.schedule().t_end <= plan.budget_s + 0.011
+
+
+def test_an_excursion_of_a_position_ends_before_it_reaches_its_limit():
+    plan = plan_bump(-12.0, 12.0, 0.0, None, rate_hz=500.0, at=0.0, step=2.0)
+    # position of a rate 0.5 x u (τ = 50 ms): 1 unit/s at 2 V; limits [-1, 1.5], guard band
+    # [-0.375, 0.875]: the first excursion (from 0) ends there, after about 0.9 s, instead of
+    # running on until its hold is up
+    driver = _play(plan, 0.002, 0.5, 0.05, limits=(-1.0, 1.5), order=2)
+    assert driver.guarded_holds and driver.guarded_holds[0] == 1      # counted from 1
+    assert 0.8 < driver.hold_lengths[0] < 0.95
+
+
 def test_the_number_of_steps_follows_the_budget():
     kw = dict(rate_hz=500.0, settle_s=2.0, hold_s=2.0, ramp_s=1.0)
-    assert plan_bump(0.0, 100.0, 0.0, None, budget_s=10.0, **kw).steps == 2      # 7 s left: 3 holds -> 2
-    assert plan_bump(0.0, 100.0, 0.0, None, budget_s=13.0, **kw).steps == 4      # 10 s: 5 -> 4
-    assert plan_bump(0.0, 100.0, 0.0, None, budget_s=100.0, **kw).steps == 8     # at most 8
-    # the run limit bounds the budget
-    assert plan_bump(0.0, 100.0, 0.0, None, budget_s=100.0, max_duration_s=12.0, **kw).steps == 4
+    assert plan_bump(0.0, 100.0, 0.0, None, steps=2, **kw).duration_s == pytest.approx(7.0)
+    # a fixed profile must end below the run limit
+    with pytest.raises(PlanError, match="max_duration_s"):
+        plan_bump(0.0, 100.0, 0.0, None, steps=8, max_duration_s=12.0, **kw)
+    # holding until settled: the budget is bounded by the run limit
+    assert plan_bump(0.0, 100.0, 0.0, None, rate_hz=500.0, max_duration_s=40.0).budget_s == 38.0
 
 
 @pytest.mark.parametrize("kwargs, option, words", [
@@ -157,8 +209,9 @@ def test_the_number_of_steps_follows_the_budget():
     ({"step": 0.0}, "--step", ["--step 0", "non-zero"]),
     ({"hold_s": 0.01}, "--hold", ["--hold 0.01", ">= "]),
     ({"steps": 3}, "--steps", ["--steps 3", "even"]),
+    ({"steps": 10}, "--steps", ["--steps 10", "to 8"]),
     ({"budget_s": 5.0}, "--budget", ["--budget 5", "do not fit"]),
-    ({"steps": 8, "max_duration_s": 20.0}, "--steps", ["max_duration_s", "20"]),
+    ({"steps": 8, "hold_s": 3.0, "settle_s": 4.0, "max_duration_s": 20.0}, "--steps", ["max_duration_s", "20"]),
     ({"ramp_s": -1.0}, "--ramp", ["--ramp -1", ">= 0"]),
 ])
 def test_plans_outside_the_limits_are_refused_with_the_option_named(kwargs, option, words):
@@ -250,7 +303,7 @@ def test_noise_floor_of_quantized_readings_is_q_over_sqrt_12():
 def test_fopdt_response_equals_scipy_lsim(order):
     plan = fan_like_plan()
     ts = 0.002
-    t, u = slewed_bump(plan, ts)
+    t, u, sched = slewed_bump(plan, ts)
     k, tau, theta = 30.0, 0.4, 0.0064
     ref = lsim_fopdt(order, k, tau, theta, t, u)
     du = np.diff(u)
@@ -263,10 +316,10 @@ def test_alpha_of_an_exact_first_order_response_is_k_over_tau():
     """y' = (−y + K·u)/τ has y' = F + (K/τ)·u: the initial slope per unit input is K/τ."""
     plan = fan_like_plan(settle_s=8.0)
     ts = 0.002
-    t, u = slewed_bump(plan, ts)
+    t, u, sched = slewed_bump(plan, ts)
     k, tau = 30.0, 0.7
     y = lsim_fopdt(1, k, tau, 0.0, t, u)
-    i_step = int(np.argmax(t >= plan.t_first))
+    i_step = int(np.argmax(t >= sched.starts[0]))
     i_step += int(np.argmax(u[i_step:] != u[i_step - 1]))
     base = y[i_step - 1]
     dy, du = y - base, u - u[i_step - 1]
@@ -283,8 +336,8 @@ def test_a_noise_free_bump_gives_the_exact_model(order):
     plan = fan_like_plan()
     ts = 0.002
     k, tau, theta = 30.0, 0.45, 0.0074
-    t, y, u = first_order_record(plan, ts, k, tau, theta, order=order, base=1000.0)
-    est = analyse_bump(t, y, u, order=order, plan=plan, ts=ts)
+    t, y, u, sched = first_order_record(plan, ts, k, tau, theta, order=order, base=1000.0)
+    est = analyse_bump(t, y, u, order=order, plan=plan, schedule=sched, ts=ts)
     refusals, _ = judge(est, plan)
     assert refusals == []
     assert est.alpha == pytest.approx(k / tau, rel=2e-3) and est.alpha_spread < 2e-3 * k / tau
@@ -300,9 +353,9 @@ def test_a_drifting_load_is_removed_using_the_trends_before_and_after():
     plan = fan_like_plan(hold_s=3.0, settle_s=3.0)
     ts = 0.002
     k, tau = 30.0, 0.45
-    t, y, u = first_order_record(plan, ts, k, tau)
+    t, y, u, sched = first_order_record(plan, ts, k, tau)
     drift = 25.0                                  # output units per second: 75 per hold
-    est = analyse_bump(t, y + drift * t, u, order=1, plan=plan, ts=ts)
+    est = analyse_bump(t, y + drift * t, u, order=1, plan=plan, schedule=sched, ts=ts)
     assert est.gain == pytest.approx(k, rel=0.01)
     assert est.gain_levels == pytest.approx(k, rel=0.05)   # the levels see the step's tail
     assert est.alpha == pytest.approx(k / tau, rel=0.02)
@@ -313,8 +366,8 @@ def test_a_noisy_bump_with_delay_recovers_k_tau_theta_within_tolerance():
     plan = fan_like_plan(settle_s=4.0, hold_s=3.0)
     ts = 0.002
     k, tau, theta, sigma = 30.0, 0.6, 0.0204, 8.0
-    t, y, u = first_order_record(plan, ts, k, tau, theta, sigma=sigma, seed=11, base=1500.0)
-    est = analyse_bump(t, y, u, order=1, plan=plan, ts=ts)
+    t, y, u, sched = first_order_record(plan, ts, k, tau, theta, sigma=sigma, seed=11, base=1500.0)
+    est = analyse_bump(t, y, u, order=1, plan=plan, schedule=sched, ts=ts)
     assert est.gain == pytest.approx(k, rel=0.02)
     assert est.tau == pytest.approx(tau, rel=0.05)
     assert est.theta == pytest.approx(theta, abs=3 * ts)
@@ -328,8 +381,8 @@ def test_a_dead_zone_is_found_on_the_ramp():
     plan = fan_like_plan(ramp_s=4.0)
     ts = 0.002
     k, tau, dz = 30.0, 0.3, 12.0
-    t, y, u = first_order_record(plan, ts, k, tau, sigma=2.0, seed=3, dead_zone=dz)
-    est = analyse_bump(t, y, u, order=1, plan=plan, ts=ts)
+    t, y, u, sched = first_order_record(plan, ts, k, tau, sigma=2.0, seed=3, dead_zone=dz)
+    est = analyse_bump(t, y, u, order=1, plan=plan, schedule=sched, ts=ts)
     assert est.dead_zone.found
     # the lag correction brings the edge within about one per cent of duty of the truth
     assert est.dead_zone.u_start == pytest.approx(dz, abs=1.0)
@@ -339,8 +392,8 @@ def test_a_dead_zone_is_found_on_the_ramp():
     assert refusals == [] and any("dead zone" in n for n in notes)
     # the same rig stepped into its dead zone is refused
     plan_low = fan_like_plan(ramp_s=4.0, at=18.0, step=8.0)
-    t, y, u = first_order_record(plan_low, ts, k, tau, sigma=2.0, seed=3, dead_zone=dz)
-    refusals, _ = judge(analyse_bump(t, y, u, order=1, plan=plan_low, ts=ts), plan_low)
+    t, y, u, sched = first_order_record(plan_low, ts, k, tau, sigma=2.0, seed=3, dead_zone=dz)
+    refusals, _ = judge(analyse_bump(t, y, u, order=1, plan=plan_low, schedule=sched, ts=ts), plan_low)
     assert any("dead zone" in r.reason for r in refusals)
 
 
@@ -348,18 +401,18 @@ def test_a_dead_zone_is_found_on_the_ramp():
 def test_no_response_is_an_estimation_error():
     plan = fan_like_plan()
     ts = 0.002
-    t, u = slewed_bump(plan, ts)
+    t, u, sched = slewed_bump(plan, ts)
     y = 700.0 + np.random.default_rng(2).normal(0.0, 5.0, t.size)
     with pytest.raises(EstimationError, match="no response to the steps"):
-        analyse_bump(t, y, u, order=1, plan=plan, ts=ts, output="speed_rpm")
+        analyse_bump(t, y, u, order=1, plan=plan, schedule=sched, ts=ts, output="speed_rpm")
 
 
 def test_an_output_that_hardly_moved_is_refused():
     plan = fan_like_plan()
     ts = 0.002
-    # a response of 6 noise standard deviations: measurable, but not enough to tune from
-    t, y, u = first_order_record(plan, ts, 0.6, 0.3, sigma=1.0, seed=5)
-    est = analyse_bump(t, y, u, order=1, plan=plan, ts=ts)
+    # a response of 2 noise standard deviations: measurable on average, but hidden in the noise
+    t, y, u, sched = first_order_record(plan, ts, 0.2, 0.3, sigma=1.0, seed=5)
+    est = analyse_bump(t, y, u, order=1, plan=plan, schedule=sched, ts=ts)
     refusals, _ = judge(est, plan)
     assert any("hardly moved" in r.reason for r in refusals)
     assert all(r.advice for r in refusals)
@@ -369,10 +422,10 @@ def test_steps_that_disagree_in_sign_are_refused():
     """A rig that answers |u − u0| (both excursions raise the output) has no alpha."""
     plan = fan_like_plan()
     ts = 0.002
-    t, u = slewed_bump(plan, ts)
+    t, u, sched = slewed_bump(plan, ts)
     folded = np.where(t > plan.ramp_s, plan.u0 + np.abs(u - plan.u0), u)
     y = lsim_fopdt(1, 30.0, 0.3, 0.0, t, folded)
-    est = analyse_bump(t, y, u, order=1, plan=plan, ts=ts)
+    est = analyse_bump(t, y, u, order=1, plan=plan, schedule=sched, ts=ts)
     refusals, _ = judge(est, plan)
     assert any("opposite sign" in r.reason for r in refusals)
 
@@ -381,8 +434,8 @@ def test_a_fit_on_its_search_bound_is_refused():
     plan = fan_like_plan()
     ts = 0.002
     # τ = 200 s against holds of 2.5 s: the fit's τ runs into its upper bound
-    t, y, u = first_order_record(plan, ts, 3000.0, 200.0, sigma=0.5, seed=2)
-    est = analyse_bump(t, y, u, order=1, plan=plan, ts=ts)
+    t, y, u, sched = first_order_record(plan, ts, 3000.0, 200.0, sigma=0.5, seed=2)
+    est = analyse_bump(t, y, u, order=1, plan=plan, schedule=sched, ts=ts)
     refusals, _ = judge(est, plan)
     assert any("search bound" in r.reason for r in refusals)
 
@@ -390,13 +443,14 @@ def test_a_fit_on_its_search_bound_is_refused():
 def test_a_correction_that_outweighs_the_data_and_a_sign_contradiction_are_refused():
     plan = fan_like_plan()
     ts = 0.002
-    t, y, u = first_order_record(plan, ts, 30.0, 0.45)
-    est = analyse_bump(t, y, u, order=1, plan=plan, ts=ts)
+    t, y, u, sched = first_order_record(plan, ts, 30.0, 0.45)
+    est = analyse_bump(t, y, u, order=1, plan=plan, schedule=sched, ts=ts)
     step = est.steps[0]
-    step.alpha_uncorrected = -0.1 * step.alpha            # the slope measured was about nothing
+    step.alpha_source = "slope"                           # the model-free slope was used, and
+    step.alpha_uncorrected = -0.1 * step.alpha_slope      # the slope measured was about nothing
     refusals, _ = judge(est, plan)
     assert any("outweighs" in r.reason for r in refusals)
-    est = analyse_bump(t, y, u, order=1, plan=plan, ts=ts)
+    est = analyse_bump(t, y, u, order=1, plan=plan, schedule=sched, ts=ts)
     est.gain = -est.gain
     refusals, _ = judge(est, plan)
     assert any("opposite signs" in r.reason for r in refusals)
@@ -408,8 +462,8 @@ def test_a_correction_that_outweighs_the_data_and_a_sign_contradiction_are_refus
 def test_suggestions_follow_the_documented_rules():
     plan = fan_like_plan()
     ts = 0.002
-    t, y, u = first_order_record(plan, ts, 30.0, 0.5, 0.004, sigma=2.0, seed=5)
-    est = analyse_bump(t, y, u, order=1, plan=plan, ts=ts)
+    t, y, u, sched = first_order_record(plan, ts, 30.0, 0.5, 0.004, sigma=2.0, seed=5)
+    est = analyse_bump(t, y, u, order=1, plan=plan, schedule=sched, ts=ts)
     s = suggest_settings(est, plan)
     assert s.alpha == float(f"{est.alpha:.2g}")
     assert s.sigma_f <= s.sigma_f_target
@@ -428,8 +482,8 @@ def test_suggestions_follow_the_documented_rules():
     with pytest.raises(PlanError, match="--tau-cl"):
         suggest_settings(est, plan, tau_cl=4 * ts)
 
-    t, y2, u = first_order_record(plan, ts, 20.0, 0.4, order=2)
-    est2 = analyse_bump(t, y2, u, order=2, plan=plan, ts=ts)
+    t, y2, u, sched = first_order_record(plan, ts, 20.0, 0.4, order=2)
+    est2 = analyse_bump(t, y2, u, order=2, plan=plan, schedule=sched, ts=ts)
     s2 = suggest_settings(est2, plan, tau_cl=0.1)
     assert (s2.kp, s2.kd) == (pytest.approx(100.0), pytest.approx(20.0))   # (ω², 2ζω), ω = 10, ζ = 1
     # SIMC integrating process with a lag (from memory): Kc = 1/(K(τc + θ)), τI = 4(τc + θ),
@@ -453,8 +507,8 @@ def test_the_closed_loop_is_never_faster_than_three_times_the_delay():
     plan = fan_like_plan(hold_s=3.0)
     ts = 0.002
     theta = 0.06                                   # a long transport delay against τ/5 = 0.1 s
-    t, y, u = first_order_record(plan, ts, 30.0, 0.5, theta, sigma=1.0, seed=8)
-    est = analyse_bump(t, y, u, order=1, plan=plan, ts=ts)
+    t, y, u, sched = first_order_record(plan, ts, 30.0, 0.5, theta, sigma=1.0, seed=8)
+    est = analyse_bump(t, y, u, order=1, plan=plan, schedule=sched, ts=ts)
     assert est.theta == pytest.approx(theta, abs=2 * ts)
     s = suggest_settings(est, plan)
     assert s.tau_cl >= 3 * (est.theta + 1.5 * ts) and "dead time" in s.tau_cl_rule
@@ -466,8 +520,8 @@ def test_the_closed_loop_is_never_faster_than_three_times_the_delay():
 def test_the_window_meets_the_noise_target_for_the_configured_kind(kind):
     plan = fan_like_plan()
     ts = 0.002
-    t, y, u = first_order_record(plan, ts, 30.0, 0.5, 0.0, sigma=6.0, seed=6)
-    est = analyse_bump(t, y, u, order=1, plan=plan, ts=ts)
+    t, y, u, sched = first_order_record(plan, ts, 30.0, 0.5, 0.0, sigma=6.0, seed=6)
+    est = analyse_bump(t, y, u, order=1, plan=plan, schedule=sched, ts=ts)
     s = suggest_settings(est, plan, kind=kind)
     # measured: F̂'s noise with the suggested kind and window, on white noise of the floor's σ
     k = make_kernel(s.estimator_kind, 1, s.window_samples, ts)
@@ -656,13 +710,12 @@ def test_a_trip_exits_3_and_estimates_nothing(tmp_path, capsys):
     assert meta["outcome"] == "tripped" and meta["identify"]["error"].startswith("tripped")
 
 
-@dataclass(frozen=True)
-class _InterruptingPlan(BumpPlan):
+class _InterruptingDriver(BumpDriver):
     """A bump profile that presses Ctrl-C itself at t = 1 s of device time (deterministic)."""
 
     def __call__(self, t: float) -> float:
         if t >= 1.0 and not getattr(self, "_sent", False):
-            object.__setattr__(self, "_sent", True)
+            self._sent = True
             os.kill(os.getpid(), signal.SIGINT)
         return super().__call__(t)
 
@@ -673,9 +726,8 @@ def test_ctrl_c_during_the_bump_test_exits_130(tmp_path, capsys):
     from rigloop.config import load_config
 
     cfg = load_config(DEMO_FAN, [s for s in LOCKSTEP if s != "--set"] + [f"recording.dir={tmp_path}"])
-    p = plan_bump(0.0, 100.0, 0.0, 250.0, rate_hz=cfg.device.rate_hz)
-    plan = _InterruptingPlan(**{f: getattr(p, f) for f in p.__dataclass_fields__})
-    assert run_bump_test(cfg, plan, quiet=True) == 130
+    plan = plan_bump(0.0, 100.0, 0.0, 250.0, rate_hz=cfg.device.rate_hz)
+    assert run_bump_test(cfg, plan, quiet=True, driver=_InterruptingDriver(plan, cfg.period_s)) == 130
     err = capsys.readouterr().err
     assert "nothing estimated" in err
     [folder] = list(tmp_path.iterdir())

@@ -38,15 +38,16 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="size of the step du (default: 10 %% of the actuator range; negative "
                              "steps down first); u0 ± du must stay inside the range")
     parser.add_argument("--settle", type=float, metavar="S",
-                        help="hold at u0 before the first step, s (default 4)")
-    parser.add_argument("--hold", type=float, metavar="S", help="hold after each step, s (default 3)")
+                        help="hold at u0 before the first step, s (default: until settled)")
+    parser.add_argument("--hold", type=float, metavar="S",
+                        help="hold after each step, s (default: until settled, within the budget)")
     parser.add_argument("--ramp", type=float, metavar="S",
                         help="duration of the slow ramp from the safe value to the operating level, "
                              "s (default 4; never faster than the slew limit); it shows a dead zone")
     parser.add_argument("--steps", type=int, metavar="N",
-                        help="number of steps, even (default: as many as --budget allows, up to 8)")
+                        help="most steps, even, up to 8 (default 6, fewer when --budget runs out)")
     parser.add_argument("--budget", type=float, metavar="S",
-                        help="time budget of the whole test, s (default 30, and below "
+                        help="time budget of the whole test, s (default 120, and below "
                              "limits.max_duration_s)")
     parser.add_argument("--tau-cl", type=float, metavar="S", dest="tau_cl",
                         help="wanted closed-loop time constant, s (default: the fitted tau / 5, at "
@@ -89,21 +90,31 @@ def run(args: argparse.Namespace) -> int:
                          as_json=args.json, quiet=args.quiet or args.json)
 
 
+def make_driver(cfg, plan):
+    """The profile player for this rig: its order, and its output's limits for the guard."""
+    from rigloop.analysis.identify import BumpDriver
+
+    limit = cfg.limits.channels.get(cfg.control.output)
+    limits = (limit.min, limit.max) if limit is not None else (None, None)
+    return BumpDriver(plan, cfg.period_s, cfg.control.order, limits)
+
+
 def run_bump_test(cfg, plan, *, tau_cl=None, out_dir=None, write=None, as_json=False, quiet=False,
-                  stream=None) -> int:
+                  stream=None, driver=None) -> int:
     """Run the profile on the rig through the engine, then estimate, print and record."""
     from rigloop.engine.console import ConsoleStatus
     from rigloop.engine.loop import Engine, EngineError
 
+    driver = driver or make_driver(cfg, plan)
     stream = stream or sys.stdout
     a = cfg.actuator
     unit = f" {a.unit}" if a.unit else ""
     print(f"bump test on {cfg.rig}: {a.name} {plan.safe:g} -> {plan.u0:g}{unit} over "
-          f"{plan.ramp_s:.3g} s, {plan.steps} steps of ±{abs(plan.du):g}{unit} around it, "
-          f"{plan.duration_s:.3g} s. The rig moves on its own: keep the hardwired e-stop within "
-          "reach (safety.md); Ctrl-C stops at once.", file=sys.stderr)
+          f"{plan.ramp_s:.3g} s, up to {plan.steps} steps of ±{abs(plan.du):g}{unit} around it, "
+          f"each held until settled, at most {plan.duration_s:.3g} s. The rig moves on its own: keep "
+          "the hardwired e-stop within reach (safety.md); Ctrl-C stops at once.", file=sys.stderr)
     engine = Engine(cfg, out_dir=out_dir, duration_s=plan.duration_s, autostart=True, front_end="cli",
-                    open_loop=plan)
+                    open_loop=driver)
     console = None
     if not quiet:
         console = ConsoleStatus(sys.stderr, output=cfg.control.output, actuator=a.name)
@@ -145,11 +156,11 @@ def run_bump_test(cfg, plan, *, tau_cl=None, out_dir=None, write=None, as_json=F
         print(f"rigloop identify: the session ended without completing ({result.outcome}: "
               f"{result.stop_reason}); nothing estimated\nsession: {session}", file=sys.stderr)
         return EXIT_FAILED
-    return _estimate_and_report(cfg, plan, session, tau_cl=tau_cl, write=write, as_json=as_json,
-                                stream=stream)
+    return _estimate_and_report(cfg, plan, driver.schedule(), session, tau_cl=tau_cl, write=write,
+                                as_json=as_json, stream=stream)
 
 
-def _estimate_and_report(cfg, plan, session, *, tau_cl, write, as_json, stream) -> int:
+def _estimate_and_report(cfg, plan, schedule, session, *, tau_cl, write, as_json, stream) -> int:
     from rigloop.analysis.identify import (
         EstimationError, PlanError, analyse_bump, config_snippet, judge, suggest_settings,
     )
@@ -163,14 +174,14 @@ def _estimate_and_report(cfg, plan, session, *, tau_cl, write, as_json, stream) 
         u = loaded.column("u", rows)
         if t.size == 0:
             raise EstimationError("the session holds no running rows")
-        est = analyse_bump(t - t[0], y, u, order=cfg.control.order, plan=plan, ts=cfg.period_s,
-                           output=cfg.control.output)
+        est = analyse_bump(t - t[0], y, u, order=cfg.control.order, plan=plan, schedule=schedule,
+                           ts=cfg.period_s, output=cfg.control.output)
         refusals, notes = judge(est, plan)
         sugg = None if refusals else suggest_settings(est, plan, kind=cfg.control.estimator.kind,
                                                       tau_cl=tau_cl)
     except (EstimationError, SessionError, PlanError) as exc:
         print(f"rigloop identify: estimation failed: {exc}\nsession: {session}", file=sys.stderr)
-        _record(session, {"plan": plan.as_dict(), "error": str(exc)})
+        _record(session, {"plan": plan.as_dict(), "schedule": schedule.as_dict(), "error": str(exc)})
         return EXIT_FAILED
     header = (f"rigloop identify {cfg.rig}: {cfg.control.output} (order {est.order}) around "
               f"{cfg.actuator.name} = {plan.u0:g}, steps of ±{abs(plan.du):g}; session {Path(session).name}")
@@ -178,7 +189,8 @@ def _estimate_and_report(cfg, plan, session, *, tau_cl, write, as_json, stream) 
     report = {
         "session": str(session), "rig": cfg.rig, "output": cfg.control.output,
         "output_unit": _unit(cfg, cfg.control.output), "actuator": cfg.actuator.name,
-        "actuator_unit": cfg.actuator.unit, "plan": plan.as_dict(), "estimates": est.as_dict(),
+        "actuator_unit": cfg.actuator.unit, "plan": plan.as_dict(), "schedule": schedule.as_dict(),
+        "estimates": est.as_dict(),
         "refusals": [r.as_dict() for r in refusals],
         "suggestions": sugg.as_dict() if sugg is not None else None, "snippet": snippet,
         "warnings": list(est.warnings) + notes, "written": None,
@@ -254,8 +266,9 @@ def render_text(cfg, plan, est, sugg, snippet, session, written, *, refusals=(),
     w(f"  session   {session}\n")
     slew = (f"slew-limited at {plan.slew_per_s:g} {au}/s ({plan.slew_time_s:.3g} s per step)"
             if plan.slew_per_s else "no slew limit")
-    w(f"  profile   ramp {plan.safe:g} -> {plan.u0:g} {au} ({plan.ramp_s:.3g} s), hold {plan.settle_s:g} s, "
-      f"{plan.steps} steps of ±{abs(plan.du):g} {au} around {plan.u0:g}, {plan.hold_s:g} s each; {slew}\n")
+    holds = ", ".join(f"{s.hold_s:.3g}" for s in est.steps)
+    w(f"  profile   ramp {plan.safe:g} -> {plan.u0:g} {au} ({plan.ramp_s:.3g} s), "
+      f"{len(est.steps)} steps of ±{abs(plan.du):g} {au} around {plan.u0:g}, held {holds} s; {slew}\n")
     w(f"  sample period {est.ts * 1000:.4g} ms\n\n")
     w(f"Estimates per step{'':<26}" + "".join(f"{f'{k + 1} {s.direction}':>10}" for k, s in enumerate(est.steps))
       + "   mean ± spread\n")

@@ -5,6 +5,7 @@ and suggest settings.
 The data passes through one module per stage:
 
 * :mod:`.plan` — the excitation: a slow ramp to the operating level, then steps both ways;
+* :mod:`.driver` — plays the plan, holding each level until the output has settled;
 * :mod:`.fitting` — one step's FOPDT fit and initial-slope alpha;
 * :mod:`.noise`, :mod:`.deadzone` — the noise floor and where the output starts to move;
 * :mod:`.steps` — the recording to per-step estimates, their mean and spread;
@@ -16,6 +17,7 @@ docs/identify.md describes the test, its refusals and the rules with their sourc
 """
 
 from rigloop.analysis.identify.deadzone import DeadZone, find_dead_zone
+from rigloop.analysis.identify.driver import BumpDriver, Schedule
 from rigloop.analysis.identify.fitting import (
     EstimationError,
     FopdtFit,
@@ -40,7 +42,7 @@ from rigloop.analysis.identify.suggest import (
 from rigloop.analysis.identify.verdict import Refusal, judge
 
 __all__ = [
-    "BumpEstimates", "BumpPlan", "DeadZone", "EstimationError", "FopdtFit", "NOISE_FRACTION",
+    "BumpDriver", "BumpEstimates", "BumpPlan", "Schedule", "DeadZone", "EstimationError", "FopdtFit", "NOISE_FRACTION",
     "NoiseFloor", "PlanError", "Refusal", "Spread", "StepEstimate", "Suggestions", "analyse_bump",
     "config_snippet", "default_operating_point", "derivative_weights", "estimator_noise_gain",
     "find_dead_zone", "fit_fopdt", "fopdt_response", "initial_slope_alpha", "judge", "noise_floor",

@@ -1,9 +1,10 @@
 """The bump test against a plant model, without the engine: for tests and benchmarks.
 
-The profile runs through :func:`rigloop.plants.offline.run_offline` — the device's timing, the
-actuator shaping (clamp and slew limit) and the sensor model — so the record is what the engine
-would have recorded from the simulated device, sample for sample in timing, and the same
-analysis, verdict and suggestions apply.
+The profile runs with the timing of :func:`rigloop.plants.offline.run_offline` (its docstring,
+steps 1–5: the sensor reads sample k, the profile answers it, the command is shaped — clamp and
+slew limit — and applied from tick k + 1, the plant advances) and ends when the profile has
+finished, as the engine ends the run. The record is what the engine would have recorded from
+the simulated device, and the same analysis, verdict and suggestions apply.
 """
 
 from __future__ import annotations
@@ -12,50 +13,65 @@ import math
 from dataclasses import dataclass, field
 from typing import Any
 
+import numpy as np
+
+from rigloop.analysis.identify.driver import BumpDriver, Schedule
 from rigloop.analysis.identify.fitting import EstimationError
 from rigloop.analysis.identify.plan import BumpPlan
 from rigloop.analysis.identify.steps import BumpEstimates, analyse_bump
 from rigloop.analysis.identify.suggest import Suggestions, suggest_settings
 from rigloop.analysis.identify.verdict import Refusal, judge
 from rigloop.control.shaping import ActuatorShaper
-from rigloop.plants.offline import OfflineResult, run_offline
 
 
-class ProfileController:
-    """A ``run_offline`` controller that plays the bump profile open loop (no law)."""
+@dataclass
+class BumpRecord:
+    """Samples of an offline bump test: time, measured and exact output, applied input."""
 
-    def __init__(self, plan: BumpPlan, ts: float) -> None:
-        self.plan, self.ts = plan, ts
-        self.k = 0
-        self.f_hat = math.nan
-
-    def reset(self, u_hold: float | None = None) -> None:
-        self.k = 0
-
-    def step(self, y: float, u_applied: float, r: float, dr: float, ddr: float) -> float:
-        value = self.plan(self.k * self.ts)
-        self.k += 1
-        return value
+    t: np.ndarray
+    y: np.ndarray
+    y_true: np.ndarray
+    u: np.ndarray
+    schedule: Schedule
 
 
-class _Still:
-    def at(self, t: float) -> tuple[float, float, float]:
-        return (math.nan, 0.0, 0.0)
-
-
-def record_bump(plant: Any, plan: BumpPlan, *, ts: float, output: str, sensor: Any = None) -> OfflineResult:
-    """Run the profile on ``plant`` from its steady state at the safe value."""
+def record_bump(plant: Any, plan: BumpPlan, *, ts: float, output: str, order: int = 1,
+                sensor: Any = None, output_limits: tuple[float | None, float | None] = (None, None)
+                ) -> BumpRecord:
+    """Run the profile on ``plant`` from its steady state at the safe value until it finishes."""
+    driver = BumpDriver(plan, ts, order, output_limits)
     shaper = ActuatorShaper(plan.u_min, plan.u_max, plan.safe, plan.slew_per_s)
-    return run_offline(plant, ProfileController(plan, ts), _Still(), shaper, ts=ts,
-                       duration_s=plan.duration_s + 2 * ts, output=output, sensor=sensor,
-                       u0=plan.safe)
+    plant.reset(plan.safe)
+    shaper.reset(plan.safe)
+    index = plant.channel_index(output)
+    names = tuple(plant.channel_names)
+    u_applied = plan.safe
+    t_out, y_out, yt_out, u_out = [], [], [], []
+    n_max = int(math.ceil(plan.duration_s / ts)) + 2
+    for k in range(n_max):
+        tk = k * ts
+        true_values = plant.read()
+        y = float(sensor.measure(true_values, names)[index]) if sensor is not None else float(true_values[index])
+        driver.observe(tk, y)
+        command = shaper.shape(driver(tk), ts)
+        t_out.append(tk)
+        y_out.append(y)
+        yt_out.append(float(plant.outputs(plant.state)[index]))
+        u_out.append(u_applied)
+        if driver.finished:
+            break
+        plant.advance(u_applied, ts)
+        if math.isfinite(command):
+            u_applied = min(max(float(command), plan.u_min), plan.u_max)
+    return BumpRecord(np.asarray(t_out), np.asarray(y_out), np.asarray(yt_out), np.asarray(u_out),
+                      driver.schedule())
 
 
 @dataclass
 class OfflineIdentification:
     """What ``rigloop identify`` would have said: estimates, refusals, notes, suggestions."""
 
-    record: OfflineResult
+    record: BumpRecord
     estimates: BumpEstimates | None
     refusals: list[Refusal] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
@@ -64,12 +80,15 @@ class OfflineIdentification:
 
 
 def identify_offline(plant: Any, plan: BumpPlan, *, ts: float, output: str, order: int,
-                     sensor: Any = None, kind: str = "algebraic",
-                     tau_cl: float | None = None) -> OfflineIdentification:
+                     sensor: Any = None, kind: str = "algebraic", tau_cl: float | None = None,
+                     output_limits: tuple[float | None, float | None] = (None, None)
+                     ) -> OfflineIdentification:
     """The whole bump test on a plant model: record, estimate, judge, suggest."""
-    record = record_bump(plant, plan, ts=ts, output=output, sensor=sensor)
+    record = record_bump(plant, plan, ts=ts, output=output, order=order, sensor=sensor,
+                         output_limits=output_limits)
     try:
-        est = analyse_bump(record.t, record.y, record.u, order=order, plan=plan, ts=ts, output=output)
+        est = analyse_bump(record.t, record.y, record.u, order=order, plan=plan,
+                           schedule=record.schedule, ts=ts, output=output)
     except EstimationError as exc:
         return OfflineIdentification(record, None, error=str(exc))
     refusals, notes = judge(est, plan)

@@ -1,19 +1,20 @@
-"""The bump test's excitation: the open-loop actuator profile and the checks on it.
+"""The bump test's excitation: what the profile will do, checked against the rig's limits.
 
-The profile (:class:`BumpPlan`) drives the actuator open loop through the engine, so every trip,
-the clamp and the slew limit stay active:
+The profile drives the actuator open loop through the engine, so every trip, the clamp and the
+slew limit stay active:
 
 1. a slow **ramp** from ``actuator.safe`` to the operating level ``u0`` over ``ramp_s`` — where
    the output starts to move on it tells the actuator's dead zone (:mod:`.deadzone`);
 2. a **settle** hold at u0;
-3. ``steps`` **transitions** of ``hold_s`` each, both ways around u0:
-   u0 + du, u0, u0 − du, u0, u0 + du, … (du < 0 goes down first). Each excursion above u0 is
-   matched by one below, so a rig whose slope changes with u is measured on both sides, and an
-   integrating output (a position) comes back near where it started.
+3. up to ``steps`` **transitions**, both ways around u0: u0 + du, u0, u0 − du, u0, u0 + du, …
+   (du < 0 goes down first). Each excursion above u0 is matched by one below, so a rig whose
+   slope changes with u is measured on both sides, and an integrating output (a position)
+   comes back near where it started.
 
-The number of transitions is as many as the time budget allows (an even number, at least two,
-at most :data:`MAX_STEPS`), unless given. The holds are fixed: the engine runs a profile of
-``u(t)`` alone and the analysis finds every step in the recorded applied actuator column.
+Each hold lasts **until the output has settled** (:mod:`.driver`), at least ``hold_min_s`` and
+at most ``hold_max_s``, and the whole profile stays within ``budget_s``: as many steps as the
+budget allows. Given ``--settle`` or ``--hold``, those holds have that fixed length instead.
+:class:`BumpPlan` is the checked description; :class:`.driver.BumpDriver` plays it.
 """
 
 from __future__ import annotations
@@ -21,19 +22,23 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-#: Default hold at the operating level before the first step (s).
-DEFAULT_SETTLE_S = 4.0
-#: Default hold after each step (s).
-DEFAULT_HOLD_S = 3.0
+#: Shortest hold when holding until settled (s): the steady stretch at its end (30 %) must hold
+#: enough samples to fit a level (common practice: half a second is ten time constants of a fast
+#: motor and a few percent of a fan's).
+DEFAULT_HOLD_MIN_S = 1.0
 #: Default duration of the ramp from the safe value to u0 (s): slow against most rigs' time
 #: constants, so that the output follows the ramp closely (common practice for a dead-zone probe).
 DEFAULT_RAMP_S = 4.0
-#: Default time budget of the whole profile (s); the transitions fill what the ramp and the
-#: settle hold leave of it.
-DEFAULT_BUDGET_S = 30.0
+#: Default time budget of the whole profile (s), always below limits.max_duration_s. A rig that
+#: settles in a few seconds uses a fraction of it; a slow one (a flywheel of ten seconds' time
+#: constant) needs most of it.
+DEFAULT_BUDGET_S = 120.0
+#: The settle hold may use at most this fraction of the budget (the steps need the rest).
+SETTLE_BUDGET_FRACTION = 0.2
 #: Default step: this fraction of the actuator range.
 DEFAULT_STEP_FRACTION = 0.10
-#: Most transitions a profile plans (more cost time and add little to the spread).
+#: Default and largest number of transitions (more cost time and add little to the spread).
+DEFAULT_STEPS = 6
 MAX_STEPS = 8
 #: A hold must span at least this many samples to be analysed.
 MIN_HOLD_SAMPLES = 25
@@ -49,16 +54,19 @@ class PlanError(ValueError):
 
 @dataclass(frozen=True)
 class BumpPlan:
-    """The open-loop profile ``u(t)`` of one bump test (t from the first running sample)."""
+    """The checked description of one bump test (times in s from the first running sample)."""
 
     u0: float                  # operating level
     du: float                  # step (may be negative: step down first)
     safe: float                # actuator.safe, where the ramp starts
     ramp_s: float              # duration of the ramp from safe to u0
     slew_per_s: float | None   # actuator.slew_per_s (None: steps are not slew-limited)
-    settle_s: float
-    hold_s: float
-    steps: int                 # number of transitions (even)
+    settle_min_s: float        # the settle hold: at least ...
+    settle_max_s: float        # ... and at most (equal: a fixed hold)
+    hold_min_s: float          # each step's hold: at least ...
+    hold_max_s: float          # ... and at most (equal: fixed holds)
+    steps: int                 # most transitions (even)
+    budget_s: float            # the whole profile ends by then
     u_min: float
     u_max: float
     unit: str = ""
@@ -69,14 +77,16 @@ class BumpPlan:
         return abs(self.u0 - self.safe) / self.ramp_s if self.ramp_s > 0 else 0.0
 
     @property
-    def t_first(self) -> float:
-        """Time the first step is requested (s)."""
-        return self.ramp_s + self.settle_s
+    def fixed(self) -> bool:
+        """True when every hold has a fixed length (the profile is a function of time alone)."""
+        return self.settle_min_s == self.settle_max_s and self.hold_min_s == self.hold_max_s
 
     @property
     def duration_s(self) -> float:
-        """Length of the open-loop profile; the engine's ramped stop follows."""
-        return self.t_first + self.steps * self.hold_s
+        """Longest the profile can last; the engine's ramped stop follows."""
+        if self.fixed:
+            return self.ramp_s + self.settle_max_s + self.steps * self.hold_max_s
+        return self.budget_s
 
     @property
     def slew_time_s(self) -> float:
@@ -89,25 +99,18 @@ class BumpPlan:
             return self.u0
         return self.u0 + (self.du if k % 4 == 0 else -self.du)
 
-    def transitions(self) -> list[tuple[float, float, float]]:
-        """``(t_request, level_before, level_after)`` of every transition."""
-        return [(self.t_first + k * self.hold_s, self.level(k - 1), self.level(k))
-                for k in range(self.steps)]
-
-    def __call__(self, t: float) -> float:
-        """Requested actuator value at run time ``t`` (the engine's open-loop hook)."""
-        if t < self.ramp_s:
-            return self.safe + (self.u0 - self.safe) * max(t, 0.0) / self.ramp_s
-        if t < self.t_first:
+    def ramp(self, t: float) -> float:
+        """The ramp's requested value at ``t`` (u0 from ramp_s on)."""
+        if t >= self.ramp_s:
             return self.u0
-        k = min(int((t - self.t_first) // self.hold_s), self.steps - 1)
-        return self.level(k)
+        return self.safe + (self.u0 - self.safe) * max(t, 0.0) / self.ramp_s
 
     def as_dict(self) -> dict:
         return {"u0": self.u0, "du": self.du, "safe": self.safe, "ramp_s": self.ramp_s,
-                "slew_per_s": self.slew_per_s, "settle_s": self.settle_s, "hold_s": self.hold_s,
-                "steps": self.steps, "t_first": self.t_first, "duration_s": self.duration_s,
-                "unit": self.unit}
+                "slew_per_s": self.slew_per_s, "settle_min_s": self.settle_min_s,
+                "settle_max_s": self.settle_max_s, "hold_min_s": self.hold_min_s,
+                "hold_max_s": self.hold_max_s, "steps": self.steps, "budget_s": self.budget_s,
+                "duration_s": self.duration_s, "unit": self.unit}
 
 
 def default_operating_point(u_min: float, u_max: float, safe: float) -> float:
@@ -136,7 +139,7 @@ def plan_bump(u_min: float, u_max: float, safe: float, slew_per_s: float | None,
     Raises :class:`PlanError` naming the option (``--at``, ``--step``, ``--settle``, ``--hold``,
     ``--ramp``, ``--steps``, ``--budget``), the value and what is allowed. ``u0 ± du`` must stay
     inside [u_min, u_max] since the test steps both ways from u0. The ramp is never faster than
-    the slew limit.
+    the slew limit. ``settle_s``/``hold_s`` given: fixed holds; None: hold until settled.
     """
     span = u_max - u_min
     u_text = f" {unit}" if unit else ""
@@ -158,41 +161,43 @@ def plan_bump(u_min: float, u_max: float, safe: float, slew_per_s: float | None,
     ts = 1.0 / rate_hz
     slew_time = abs(du) / slew_per_s if slew_per_s else 0.0
     shortest = max(MIN_HOLD_SAMPLES * ts, 4.0 * slew_time)
-    settle = DEFAULT_SETTLE_S if settle_s is None else _finite("--settle", settle_s)
-    hold = DEFAULT_HOLD_S if hold_s is None else _finite("--hold", hold_s)
-    for option, value in (("--settle", settle), ("--hold", hold)):
-        if value < shortest:
+    for option, value in (("--settle", settle_s), ("--hold", hold_s)):
+        if value is not None and _finite(option, value) < shortest:
             raise PlanError(option, f"{option} {value:g}: too short to measure a level; allowed: "
                                     f">= {shortest:.3g} s ({MIN_HOLD_SAMPLES} samples and 4x the "
                                     f"{slew_time:.3g} s the slew limit takes for the step)")
     ramp = DEFAULT_RAMP_S if ramp_s is None else _finite("--ramp", ramp_s)
-    fastest = abs(u0 - safe) / slew_per_s if slew_per_s else 0.0
     if ramp < 0:
         raise PlanError("--ramp", f"--ramp {ramp:g}: must be >= 0 s")
-    ramp = max(ramp, fastest)
-    if abs(u0 - safe) == 0:
-        ramp = 0.0
+    ramp = 0.0 if u0 == safe else max(ramp, abs(u0 - safe) / slew_per_s if slew_per_s else 0.0)
+    if steps is not None and (isinstance(steps, bool) or not isinstance(steps, int) or steps < 2
+                              or steps % 2 or steps > MAX_STEPS):
+        raise PlanError("--steps", f"--steps {steps!r}: must be an even whole number from 2 to "
+                                   f"{MAX_STEPS} (each excursion from u0 has a step out and a step back)")
+    n = DEFAULT_STEPS if steps is None else steps
     limit = math.inf if max_duration_s is None else float(max_duration_s)
-    if steps is None:
-        budget = DEFAULT_BUDGET_S if budget_s is None else _finite("--budget", budget_s)
-        budget = min(budget, 0.95 * limit)
-        n = int(math.floor((budget - ramp - settle) / hold + 1e-9))
-        n = min(MAX_STEPS, n - n % 2)
-        if n < 2:
-            raise PlanError("--budget", f"--budget {budget:g}: the ramp ({ramp:.3g} s), the settle "
-                                        f"hold ({settle:g} s) and two holds of {hold:g} s do not fit "
-                                        f"(need {ramp + settle + 2 * hold:.3g} s, and below "
-                                        "limits.max_duration_s); raise --budget or shorten --hold")
+    budget = DEFAULT_BUDGET_S if budget_s is None else _finite("--budget", budget_s)
+    budget = min(budget, 0.95 * limit)
+    hold_min = max(DEFAULT_HOLD_MIN_S, shortest)
+    if hold_s is not None:
+        hold_min = hold_max = float(hold_s)
     else:
-        if isinstance(steps, bool) or not isinstance(steps, int) or steps < 2 or steps % 2:
-            raise PlanError("--steps", f"--steps {steps!r}: must be an even whole number >= 2 (each "
-                                       "excursion from u0 has a step out and a step back)")
-        n = steps
+        hold_max = max((budget - ramp - hold_min) / 2.0, hold_min)
+    if settle_s is not None:
+        settle_min = settle_max = float(settle_s)
+    else:
+        settle_min, settle_max = hold_min, max(SETTLE_BUDGET_FRACTION * budget, hold_min)
     plan = BumpPlan(float(u0), float(du), float(safe), float(ramp),
-                    float(slew_per_s) if slew_per_s else None, float(settle), float(hold), int(n),
-                    float(u_min), float(u_max), unit)
-    if plan.duration_s >= limit:
-        raise PlanError("--steps" if steps is not None else "--settle",
+                    float(slew_per_s) if slew_per_s else None, settle_min, settle_max, hold_min,
+                    hold_max, int(n), float(budget), float(u_min), float(u_max), unit)
+    least = ramp + settle_min + 2 * hold_min
+    if least > budget:
+        raise PlanError("--budget", f"--budget {budget:g}: the ramp ({ramp:.3g} s), the settle hold "
+                                    f"and two holds ({settle_min:g} s and 2 x {hold_min:g} s) do not "
+                                    f"fit (need {least:.3g} s, and below limits.max_duration_s); "
+                                    "raise --budget or shorten --hold")
+    if plan.fixed and plan.duration_s >= limit:
+        raise PlanError("--steps" if steps is not None else "--hold",
                         f"the bump test would last {plan.duration_s:.3g} s, not below "
                         f"limits.max_duration_s = {limit:g} s; use fewer --steps, shorter --settle "
                         "and --hold, or raise the limit")

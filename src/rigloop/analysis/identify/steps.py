@@ -12,9 +12,11 @@ at the first sample after its requested time whose **applied** actuator value mo
   drift; K is the static gain reported (m = 2: the gain of the rate, per unit u), since it
   allows for a level that had not settled by the end of the hold;
 * ``Δlevel/Δu`` of each step, a cross-check of K;
-* alpha by the derivative-free initial slope (:func:`.fitting.initial_slope_alpha`) on a window
+* alpha: K/τ of the fit — the model's initial slope, from every sample of the step — checked
+  against the derivative-free initial slope (:func:`.fitting.initial_slope_alpha`) on a window
   of ``τ/5`` after the dead time (at least two slew times and 5 samples, at most half the hold),
-  on the output minus its fitted motion without the step;
+  on the output minus its fitted motion without the step. Where the two disagree beyond the
+  slope's noise and 20 %, the response is not first order and the model-free slope is used;
 * the noise floor from the second differences of every hold (:mod:`.noise`), and the dead zone
   from the ramp (:mod:`.deadzone`).
 
@@ -31,6 +33,7 @@ from dataclasses import asdict, dataclass, field
 import numpy as np
 
 from rigloop.analysis.identify.deadzone import DeadZone, find_dead_zone
+from rigloop.analysis.identify.driver import Schedule
 from rigloop.analysis.identify.fitting import EstimationError, fit_fopdt, initial_slope_alpha
 from rigloop.analysis.identify.noise import NoiseFloor, noise_floor
 from rigloop.analysis.identify.plan import MIN_HOLD_SAMPLES, BumpPlan
@@ -39,6 +42,14 @@ from rigloop.analysis.identify.plan import MIN_HOLD_SAMPLES, BumpPlan
 STEADY_FRACTION = 0.30
 #: A step "responded" when its level change exceeds this many standard errors of the noise.
 RESPONSE_SIGMAS = 5.0
+#: alpha of a step is K/τ of its fit when the initial slope agrees with it within this many of the
+#: slope's standard deviations plus this fraction (else the model-free slope is used).
+SLOPE_AGREE_SIGMAS = 3.0
+SLOPE_AGREE_FRACTION = 0.2
+#: A step is left out of the means when its gain or alpha is further from the median than this
+#: many scaled median absolute deviations (common practice for outliers) and this fraction.
+OUTLIER_MADS = 4.0
+OUTLIER_FRACTION = 0.15
 #: The slope window after the step is τ divided by this (a fifth of τ: the response is still
 #: within 20 % of its initial slope; common practice for an initial-slope estimate).
 SLOPE_WINDOW_DIVISOR = 5.0
@@ -55,6 +66,7 @@ class StepEstimate:
     level_after: float
     level_se: float                  # standard error of the change, from the noise floor
     responded: bool
+    hold_s: float = 0.0              # length of the hold after the step
     drift: float = 0.0               # shared trend of the level (m = 1) or rate (m = 2) per s
     gain: float | None = None        # Δlevel/Δu
     gain_fit: float | None = None    # K of the fitted FOPDT model
@@ -62,10 +74,14 @@ class StepEstimate:
     theta: float | None = None
     fit_rms: float | None = None
     fit_at_bound: str | None = None
-    alpha: float | None = None
+    alpha: float | None = None        # the step's alpha: alpha_fit, or alpha_slope (alpha_source)
+    alpha_source: str | None = None
+    alpha_fit: float | None = None    # K/τ of the fitted model
+    alpha_slope: float | None = None  # derivative-free initial slope, corrected
     alpha_uncorrected: float | None = None
-    alpha_sigma: float | None = None  # standard deviation of alpha from the noise floor
+    alpha_sigma: float | None = None  # standard deviation of alpha_slope from the noise floor
     window_s: float | None = None     # slope window after the step
+    outlier: bool = False             # left out of the means (see _mark_outliers)
 
     def as_dict(self) -> dict:
         return asdict(self)
@@ -170,12 +186,49 @@ def level_change(order: int, t: np.ndarray, y: np.ndarray, before: slice, after:
     return float(lb), float(la), float(drift), se, float(math.sqrt(np.mean(res * res)))
 
 
+def _plain_level(order: int, t: np.ndarray, y: np.ndarray) -> float:
+    """Mean of y (m = 1) or its least-squares slope (m = 2)."""
+    if order == 1:
+        return float(np.mean(y))
+    return float(np.polyfit(t - t[0], y, 1)[0])
+
+
+def _change_se(order: int, sigma: float, n_before: int, n_after: int, ts: float) -> float:
+    """Standard error of a change of level (m = 1: of two means; m = 2: of two least-squares
+    slopes, σ·√(12/(n³Ts²)) each, the textbook variance of a regression slope)."""
+    if order == 1:
+        return sigma * math.sqrt(1.0 / n_before + 1.0 / n_after)
+    return sigma * math.sqrt(12.0 / (n_before ** 3 * ts * ts) + 12.0 / (n_after ** 3 * ts * ts))
+
+
+def _mark_outliers(steps: list[StepEstimate], warnings: list[str]) -> None:
+    """Leave out a step whose gain or alpha lies far from the others' (a load that stepped during
+    its hold): more than :data:`OUTLIER_MADS` scaled median absolute deviations and
+    :data:`OUTLIER_FRACTION` from the median. Needs four responding steps to tell."""
+    good = [s for s in steps if s.responded]
+    if len(good) < 4:
+        return
+    for attr in ("gain_fit", "alpha"):
+        v = np.asarray([getattr(s, attr) for s in good], dtype=float)
+        med = float(np.median(v))
+        mad = 1.4826 * float(np.median(np.abs(v - med)))     # scaled to σ for normal data
+        limit = max(OUTLIER_MADS * mad, OUTLIER_FRACTION * abs(med))
+        for s, x in zip(good, v):
+            if abs(x - med) > limit and s.responded:
+                s.responded = False
+                s.outlier = True
+                warnings.append(f"the {s.direction} step at {s.t_start:.3g} s left out: its "
+                                f"{'gain' if attr == 'gain_fit' else 'alpha'} {x:.3g} is far from "
+                                f"the others' median {med:.3g} (a load that changed during its hold?)")
+
+
 def analyse_bump(t: np.ndarray, y: np.ndarray, u: np.ndarray, *, order: int, plan: BumpPlan,
-                 ts: float | None = None, output: str = "y") -> BumpEstimates:
+                 schedule: Schedule, ts: float | None = None, output: str = "y") -> BumpEstimates:
     """Estimate alpha, K, τ, θ, the noise and the dead zone from the running rows of a bump test.
 
     ``t`` (run time from the first running sample), ``y`` and the applied ``u`` are the rows
-    recorded while the profile ran. Raises :class:`EstimationError` when nothing can be
+    recorded while the profile ran; ``schedule`` says when each step was requested
+    (:meth:`.driver.BumpDriver.schedule`). Raises :class:`EstimationError` when nothing can be
     estimated (the recording is too short, the actuator never moved, no step responded).
     """
     if order not in (1, 2):
@@ -196,26 +249,28 @@ def analyse_bump(t: np.ndarray, y: np.ndarray, u: np.ndarray, *, order: int, pla
     if gaps:
         warnings.append(f"{gaps} gap(s) in the sample times (lost samples): the estimates assume "
                         "equally spaced samples and may be off")
-    if t[-1] < plan.duration_s - 2.0 * ts:
+    if t[-1] < schedule.t_end - 2.0 * ts:
         raise EstimationError(f"the recording ends at {t[-1]:.3g} s, before the bump test's "
-                              f"{plan.duration_s:.3g} s")
+                              f"{schedule.t_end:.3g} s")
+    if len(schedule.starts) < 2:
+        raise EstimationError(f"the profile made {len(schedule.starts)} step(s) within its budget; "
+                              "two are needed (out and back): raise --budget or shorten --settle")
     tol = 1e-3 * abs(plan.du)
     starts = []
-    for t_req, _, _ in plan.transitions():
+    for t_req in schedule.starts:
         i = _find_step(t, u, t_req, ts, tol)
         if i is None:
             raise EstimationError("the applied actuator value never moved at a requested step; the "
                                   "device did not follow the commands (check its clamps: "
                                   f"u0 = {plan.u0:g}, du = {plan.du:g})")
         starts.append(i)
-    n = t.size
-    # holds: the settle hold ends at the first step, hold k at step k + 1 (the last at the end)
+    # holds: the settle hold ends at the first step, hold k at step k + 1 (the last at t_end)
+    n = min(t.size, _index_at(t, schedule.t_end + 0.5 * ts))
     ends = starts[1:] + [n]
-    lengths = [plan.settle_s] + [plan.hold_s] * len(starts)
     stretches = []
-    for length, end in zip(lengths, [starts[0]] + ends):
+    for (h0, h1), end in zip(schedule.holds(), [starts[0]] + ends):
         t_end = t[end - 1] + ts
-        start = _index_at(t, t_end - STEADY_FRACTION * length)
+        start = _index_at(t, t_end - STEADY_FRACTION * (h1 - h0))
         if end - start < MIN_HOLD_SAMPLES // 2:
             raise EstimationError(f"a hold has only {end - start} steady samples; lengthen "
                                   "--settle and --hold")
@@ -225,6 +280,7 @@ def analyse_bump(t: np.ndarray, y: np.ndarray, u: np.ndarray, *, order: int, pla
 
     steps = [_one_step(order, t, y, u, ts, plan, k, starts[k], ends[k], stretches[k],
                        stretches[k + 1], sigma, output, warnings) for k in range(len(starts))]
+    _mark_outliers(steps, warnings)
     good = [s for s in steps if s.responded]
     if not good:
         raise EstimationError(f"no response to the steps: {output} did not change beyond its noise "
@@ -251,14 +307,18 @@ def _one_step(order: int, t: np.ndarray, y: np.ndarray, u: np.ndarray, ts: float
               k: int, i_step: int, i_next: int, before: slice, after: slice, sigma: float,
               output: str, warnings: list[str]) -> StepEstimate:
     du = float(np.mean(u[after]) - np.mean(u[before]))
-    lb, la, drift, se, _ = level_change(order, t, y, before, after, float(t[i_step]), sigma)
+    lb, la, drift, _, _ = level_change(order, t, y, before, after, float(t[i_step]), sigma)
     dl = la - lb
+    # did it respond: the plain change of level (no drift model, whose extrapolation is noisier)
+    plain = _plain_level(order, t[after], y[after]) - _plain_level(order, t[before], y[before])
+    se = _change_se(order, sigma, before.stop - before.start, after.stop - after.start, ts)
     direction = "up" if du > 0 else "down"
-    responded = du != 0 and abs(dl) > RESPONSE_SIGMAS * se and abs(dl) > 1e-12 * (1 + abs(lb))
-    est = StepEstimate(direction, float(t[i_step]), du, lb, la, se, responded, drift)
+    responded = du != 0 and abs(plain) > RESPONSE_SIGMAS * se and abs(plain) > 1e-12 * (1 + abs(lb))
+    hold_len = float(t[i_next - 1] - t[i_step])
+    est = StepEstimate(direction, float(t[i_step]), du, lb, la, se, responded, hold_len, drift)
     name = f"step {k + 1} ({direction})"
     if not responded:
-        warnings.append(f"{name}: {output} {'rate ' if order == 2 else ''}changed by {dl:.3g}, "
+        warnings.append(f"{name}: {output} {'rate ' if order == 2 else ''}changed by {plain:.3g}, "
                         f"within the noise (±{RESPONSE_SIGMAS:g} x {se:.3g}); no estimate from it")
         return est
     est.gain = dl / du
@@ -270,7 +330,6 @@ def _one_step(order: int, t: np.ndarray, y: np.ndarray, u: np.ndarray, ts: float
     est.gain_fit, est.tau, est.theta, est.fit_rms = fit.gain, fit.tau, fit.theta, fit.rms
     est.fit_at_bound = fit.at_bound
     est.drift = fit.drift                       # the fit models the step's tail; the levels do not
-    hold_len = float(t[i_next - 1] - t[i_step])
     if order == 1 and fit.at_bound is None and hold_len < 4.0 * fit.tau:
         warnings.append(f"{name}: the hold ({hold_len:.3g} s) is shorter than 4 τ "
                         f"({4 * fit.tau:.3g} s): the level had not settled, so K from the steady "
@@ -286,7 +345,14 @@ def _one_step(order: int, t: np.ndarray, y: np.ndarray, u: np.ndarray, ts: float
     alpha, raw, gain_noise = initial_slope_alpha(order, dy, u[seg] - u_before, ts,
                                                  i_step - seg.start, n_after, delay=delay,
                                                  tau=fit.tau)
-    est.alpha, est.alpha_uncorrected = alpha, raw
+    est.alpha_slope, est.alpha_uncorrected = alpha, raw
     est.alpha_sigma = sigma * gain_noise
     est.window_s = n_after * ts
+    est.alpha_fit = fit.gain / fit.tau
+    # the fit uses every sample of the step; the slope only the first τ/5 but assumes no model.
+    # Where they agree within the slope's noise (or 20 %), the fit's is the better estimate.
+    agree = abs(alpha - est.alpha_fit) <= SLOPE_AGREE_SIGMAS * est.alpha_sigma \
+        + SLOPE_AGREE_FRACTION * abs(est.alpha_fit)
+    est.alpha, est.alpha_source = (est.alpha_fit, "fit") if agree and fit.at_bound is None \
+        else (alpha, "slope")
     return est

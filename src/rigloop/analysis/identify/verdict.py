@@ -7,7 +7,8 @@ snippet — when the estimates do not hold together:
 
 * **the output hardly moved**: a step's change of level (m = 1) or of rate (m = 2) is within
   :data:`.steps.RESPONSE_SIGMAS` standard errors of the noise, or the output moved less than
-  :data:`MOVED_SIGMAS` noise standard deviations over the step;
+  :data:`MOVED_SIGMAS` noise standard deviations over the step (m = 2: the change of rate times
+  the hold);
 * **the steps disagree in sign**: two steps' alphas, or alpha and the static gain, have opposite
   signs;
 * **the steps disagree beyond their spread**: the spread of alpha over the steps exceeds
@@ -16,6 +17,8 @@ snippet — when the estimates do not hold together:
 * **a fit sits on its search bound**: τ or θ of some step ended on the edge of the search, so
   the correction that divides by τ is unfounded;
 * **the steps reach into the dead zone** found on the ramp (:mod:`.deadzone`);
+* **the model does not describe the response**: the fit's residual is more than
+  :data:`FIT_RMS_NOISE` times the noise floor, so its K/τ is not the rig's alpha;
 * **a correction outweighs the data**: the correction of the initial slope for the plant's own
   motion is larger than the slope measured, so alpha would come from the model, not the rig.
 
@@ -31,15 +34,18 @@ from dataclasses import asdict, dataclass
 from rigloop.analysis.identify.plan import BumpPlan
 from rigloop.analysis.identify.steps import RESPONSE_SIGMAS, BumpEstimates
 
-#: The output must move by at least this many noise standard deviations over a step (a change
-#: of ten times the noise is what a reader sees at a glance on a plot; common practice).
-MOVED_SIGMAS = 10.0
+#: The output must move by at least this many noise standard deviations over a step (common
+#: practice: about where a step stands out of the noise on a plot).
+MOVED_SIGMAS = 3.0
 #: Largest spread of alpha over the steps, relative to its mean (our choice: beyond ±35 % the
 #: suggested gains are off by more than a loop's usual gain margin allows).
 MAX_RELATIVE_SPREAD = 0.35
 #: The spread is "beyond the noise" when it exceeds this many times the noise's own share
 #: (the typical standard deviation of one step's alpha from the noise floor).
 SPREAD_NOISE_FACTOR = 3.0
+#: The fit describes the response when its residual RMS is at most this many times the noise
+#: floor (common practice: residuals at the noise level mean the model holds).
+FIT_RMS_NOISE = 2.0
 #: Up and down disagree when their means differ by more than this many combined standard errors.
 UP_DOWN_SIGMAS = 3.0
 #: The initial slope and the fit's K/τ are compared against this relative difference.
@@ -59,14 +65,15 @@ class Refusal:
 
 def judge(est: BumpEstimates, plan: BumpPlan) -> tuple[list[Refusal], list[str]]:
     """(refusals, warnings) for the estimates of one bump test (module docstring)."""
-    hold_s = plan.hold_s
     refusals: list[Refusal] = []
     notes: list[str] = []
     sigma = est.noise_std
     m = est.order
     quiet = []
     for k, s in enumerate(est.steps):
-        moved = abs(s.level_after - s.level_before) * (1.0 if m == 1 else hold_s)
+        if s.outlier:
+            continue
+        moved = abs(s.level_after - s.level_before) * (1.0 if m == 1 else s.hold_s)
         if not s.responded or (sigma > 0 and moved < MOVED_SIGMAS * sigma):
             quiet.append(f"{k + 1} ({s.direction}: {moved:.3g} against a noise of {sigma:.3g})")
     if quiet:
@@ -98,15 +105,25 @@ def judge(est: BumpEstimates, plan: BumpPlan) -> tuple[list[Refusal], list[str]]
                 "the rig is not the same from step to step (a load that changes, backlash, a "
                 "dead zone within the steps): use a smaller --step around an --at away from "
                 "the dead zone, or longer --hold"))
-    bounded = [f"{k + 1} ({s.fit_at_bound})" for k, s in enumerate(est.steps) if s.fit_at_bound]
+    bounded = [f"{k + 1} ({s.fit_at_bound})" for k, s in enumerate(est.steps)
+               if s.fit_at_bound and not s.outlier]
     if bounded:
         refusals.append(Refusal(
             f"the model fit sits on its search bound on step(s) {', '.join(bounded)}",
             "the response is not a first-order lag with dead time over the hold: lengthen "
             "--hold (tau_max), raise the sample rate (tau_min) or look for a second lag"))
+    loose = [f"{k + 1} ({s.fit_rms / sigma:.2g} x)" for k, s in enumerate(est.steps)
+             if s.responded and s.fit_rms is not None and sigma > 0 and s.fit_rms > FIT_RMS_NOISE * sigma]
+    if loose:
+        refusals.append(Refusal(
+            f"the model does not describe the response: its residual is above {FIT_RMS_NOISE:g} x "
+            f"the noise floor on step(s) {', '.join(loose)}",
+            "the rig is not a first-order lag with dead time around this level (backlash, a load "
+            "that changes with position, a second lag): try a smaller --step, a level away from "
+            "rest (--at) or shorter holds"))
     heavy = [f"{k + 1}" for k, s in enumerate(good)
-             if s.alpha is not None and s.alpha_uncorrected is not None
-             and abs(s.alpha - s.alpha_uncorrected) > abs(s.alpha_uncorrected)]
+             if s.alpha_source == "slope" and s.alpha_slope is not None
+             and abs(s.alpha_slope - s.alpha_uncorrected) > abs(s.alpha_uncorrected)]
     if heavy:
         refusals.append(Refusal(
             f"on step(s) {', '.join(heavy)} the correction for the plant's own motion outweighs "
