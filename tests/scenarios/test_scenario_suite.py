@@ -148,3 +148,26 @@ def test_every_scenario_runs_through_the_engine_in_lockstep(path, tmp_path, caps
     meta = yaml.safe_load((folder / "session.yaml").read_text())
     assert meta["outcome"] == "completed" and meta["trip"] is None, printed
     assert meta["summary"]["samples"] >= 3 * Scenario(path).config.device.rate_hz * 0.95
+
+
+@pytest.mark.parametrize("path", PATHS, ids=IDS)
+def test_truth_noise_matches_the_readings_at_rest(path):
+    # At the operating point (held by a constant command) the readings' spread is the sensor's
+    # noise and quantization: sqrt(noise_std^2 + q^2/12) (a uniform quantizer's error variance
+    # is q^2/12; it holds when the noise spans several counts, else the spread is bounded by q).
+    s = Scenario(path)
+    truth = s.truth()
+    rig, sensor = s.build()
+    if s.order == 2 or rig.tach_min_reading() > 0 or s.config.device.sim.rig.get("load"):
+        pytest.skip("no still operating point to read (angle, tach timing, moving load)")
+    rig.reset(truth.u)
+    i = rig.channel_index(s.output)
+    readings = []
+    for _ in range(3000):
+        rig.advance(truth.u, s.period_s)
+        readings.append(sensor.measure(rig.read())[i])
+    expected = math.hypot(truth.noise_std, truth.quantization_std)
+    if truth.noise_std >= truth.resolution:
+        assert np.std(readings) == pytest.approx(expected, rel=0.1)
+    else:
+        assert np.std(readings) <= truth.resolution + 1e-12

@@ -78,6 +78,7 @@ class ChannelConfig:
     unit: str
     scale: float
     offset: float
+    resolution: float | None = None   # None: measured by the controller from the readings
 
 
 @dataclass(frozen=True)
@@ -109,6 +110,8 @@ class ControlConfig:
     pid_u0: float
     estimator: EstimatorConfig
     derivative_window_s: float | None
+    input_delay_s: float = 0.0
+    quantization_band: float = 1.0
 
 
 @dataclass(frozen=True)
@@ -216,7 +219,8 @@ def build_config(root: dict, *, source_path: Path | None, base_dir: Path, url: s
         output=ctl["output"], law=ctl["law"], order=ctl["order"], alpha=ctl["alpha"],
         kp=ctl["kp"], ki=ctl["ki"], kd=ctl["kd"], anti_windup=ctl["anti_windup"],
         pid_u0=ctl["pid_u0"], estimator=EstimatorConfig(**ctl["estimator"]),
-        derivative_window_s=ctl["derivative_window_s"],
+        derivative_window_s=ctl["derivative_window_s"], input_delay_s=ctl["input_delay_s"],
+        quantization_band=ctl["quantization_band"],
     )
     lim = root["limits"]
     fixed = set(fixed_limit_settings())

@@ -184,7 +184,9 @@ _CONTROL_FIELDS = {"law": "control.law", "order": "control.order", "alpha": "con
                    "kp": "control.kp", "ki": "control.ki", "kd": "control.kd",
                    "estimator": "control.estimator.kind", "window_s": "control.estimator.window_s",
                    "derivative_window_s": "control.derivative_window_s",
-                   "anti_windup": "control.anti_windup", "pid_u0": "control.pid_u0"}
+                   "anti_windup": "control.anti_windup", "pid_u0": "control.pid_u0",
+                   "input_delay_s": "control.input_delay_s",
+                   "quantization_band": "control.quantization_band"}
 
 
 @rule
@@ -206,9 +208,11 @@ def controller_builds(ctx: RuleContext) -> Iterator[Problem]:
             law=control["law"], order=control["order"], alpha=control["alpha"], kp=control["kp"],
             ki=control["ki"], kd=control["kd"], estimator=estimator["kind"],
             window_s=estimator["window_s"], derivative_window_s=control["derivative_window_s"],
-            anti_windup=control["anti_windup"], pid_u0=control["pid_u0"])
+            anti_windup=control["anti_windup"], pid_u0=control["pid_u0"],
+            input_delay_s=control["input_delay_s"], quantization_band=control["quantization_band"])
         params.window_samples(1.0 / rate)
         params.derivative_window_samples(1.0 / rate)
+        params.estimation_samples(1.0 / rate)
     except ValueError as error:
         message = str(error)
         field = re.match(r"^([a-z_0-9]+)", message)

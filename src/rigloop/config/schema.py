@@ -456,6 +456,9 @@ SCHEMA: tuple[Key, ...] = (
         "value = raw * scale + offset"),
     Key("channels[].offset", Number(ge=-CHANNEL_SCALE_MAX, le=CHANNEL_SCALE_MAX), 0.0,
         "value = raw * scale + offset"),
+    Key("channels[].resolution", _NONNEG, None,
+        "smallest step of the reading (an encoder count, a quantum) in the channel's unit; "
+        "null = measured from the readings, 0 = continuous", nullable=True),
     Key("actuator", Section(), REQUIRED, "the actuator the law drives"),
     Key("actuator.name", Text(NAME_PATTERN, NAME_DOC), "u", "actuator name, for labels"),
     Key("actuator.unit", Text(allow_empty=True), "", "actuator unit"),
@@ -490,6 +493,11 @@ SCHEMA: tuple[Key, ...] = (
     Key("control.derivative_window_s", _POS, None,
         "window of the error-derivative estimate in iPD/iPID [s]; null = the estimator window",
         nullable=True),
+    Key("control.quantization_band", Number(ge=0, le=10), 1.0,
+        "width of the hysteresis and error dead band the law sees the output through, in "
+        "counts of the output's resolution; 0 = off"),
+    Key("control.input_delay_s", Number(ge=0, le=10), 0.0,
+        "known input delay tau of the rig [s]: F is estimated with u(t - tau); 0 = none"),
     # ---- reference
     Key("reference", Section(), {}, "the reference (setpoint) profile r(t)"),
     Key("reference.kind", Choice(REFERENCE_KINDS), "levels", "profile kind"),

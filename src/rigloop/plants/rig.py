@@ -316,6 +316,10 @@ class Rig:
         drive = self.inner.steady_input(channel, value / self._channel_gain(channel))
         return self.command_for_drive(drive)
 
+    def acting_drive(self) -> float:
+        """The drive acting on the plant now (the command of ``input_delay_s`` ago, dead-zoned)."""
+        return float(self._drive_now)
+
     def true_delay(self) -> float:
         """Transport delay between a command applied by the device and the plant [s]."""
         return float(self.spec.input_delay_s)

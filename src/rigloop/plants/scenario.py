@@ -43,6 +43,8 @@ class ScenarioTruth:
     dead_zone: float       # actuator dead zone half-width [actuator unit]
     resolution: float      # smallest step of the reading (quantum or encoder count; 0: none)
     tach_min_reading: float  # lowest non-zero tach reading (0: no tach)
+    noise_std: float = 0.0   # std of the reading's noise at y: sqrt(std^2 + (relative*y)^2)
+    quantization_std: float = 0.0  # std of the uniform quantizer's error, resolution/sqrt(12)
 
     @property
     def time_constant_s(self) -> float:
@@ -101,10 +103,14 @@ class Scenario:
             alpha = rig.true_alpha(out, 1, u)
             gain = rig.static_gain(out, u)
         y = float(rig.outputs(rig.state)[rig.channel_index(out)])
+        resolution = self.resolution(rig, sensor)
+        std = float(sensor.noise_std.get(out, 0.0))
+        rel = float(sensor.relative_std.get(out, 0.0))
         return ScenarioTruth(
             channel=out, order=m, u=u, y=y, alpha=float(alpha), static_gain=float(gain),
             delay_s=rig.true_delay(), dead_zone=rig.dead_zone(),
-            resolution=self.resolution(rig, sensor), tach_min_reading=rig.tach_min_reading(),
+            resolution=resolution, tach_min_reading=rig.tach_min_reading(),
+            noise_std=math.hypot(std, rel * y), quantization_std=resolution / math.sqrt(12.0),
         )
 
     def resolution(self, rig: Any = None, sensor: SensorModel | None = None) -> float:
