@@ -15,7 +15,7 @@ One table: the bump test's errors, then per controller the RMS tracking error an
 overshoot of the noise-free plant output, and the actuator's total variation; the ratio iP/SIMC
 of the RMS errors and iP/oracle. Progress lines go to stderr, the table to stdout.
 
-Run:  .venv/bin/python bench/control_quality.py [--only NAME] [--json FILE]
+Run:  .venv/bin/python bench/control_quality.py [--only NAME] [--json FILE] [--delay-aware]
 Never run by the tests (they hold looser tolerances on the same functions).
 """
 
@@ -37,6 +37,8 @@ def main(argv: list[str] | None = None) -> int:
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     p.add_argument("--only", help="run the scenarios whose name contains this text")
     p.add_argument("--json", help="also write the rows to this file")
+    p.add_argument("--delay-aware", action="store_true",
+                   help="give the model-free law the fitted dead time as control.input_delay_s")
     args = p.parse_args(argv)
 
     rows = []
@@ -52,7 +54,8 @@ def main(argv: list[str] | None = None) -> int:
         limit = cfg.limits.channels.get(sc.output)
         result = identify_offline(rig, plan, ts=sc.period_s, output=sc.output, order=sc.order,
                                   sensor=sensor, kind=cfg.control.estimator.kind,
-                                  output_limits=(limit.min, limit.max) if limit else (None, None))
+                                  output_limits=(limit.min, limit.max) if limit else (None, None),
+                                  delay_aware=args.delay_aware)
         row = {"scenario": sc.name, "order": sc.order, "truth_alpha": truth.alpha,
                "truth_gain": truth.static_gain}
         est = result.estimates

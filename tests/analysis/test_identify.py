@@ -496,8 +496,9 @@ def test_suggestions_follow_the_documented_rules():
     assert s2.pid_kd == pytest.approx(kc2 * td2, rel=5e-3)
 
     snippet = yaml.safe_load(config_snippet(s))
-    assert snippet == {"control": {"alpha": s.alpha, "kp": s.kp, "kd": s.kd,
+    assert snippet == {"control": {"alpha": s.alpha, "kp": s.kp, "kd": s.kd, "input_delay_s": 0.0,
                                    "estimator": {"kind": "algebraic", "window_s": s.window_s}}}
+    assert suggest_settings(est, plan, delay_aware=True).input_delay_s == float(f"{est.theta:.2g}")
     assert snippet_overrides(s)[0] == f"control.alpha={s.alpha!r}"
 
 
@@ -632,7 +633,7 @@ def test_written_snippet_and_its_pid_block_pass_rigloop_check(fan_identified, ca
     text = snippet.read_text()
     tree = yaml.safe_load(text)
     assert set(_flatten(tree)) and {k.split("=")[0] for k in _flatten(tree)} == {
-        "control.alpha", "control.kp", "control.kd", "control.estimator.kind",
+        "control.alpha", "control.kp", "control.kd", "control.input_delay_s", "control.estimator.kind",
         "control.estimator.window_s"}
     sets = [a for kv in _flatten(tree) for a in ("--set", kv)]
     assert main(["check", DEMO_FAN, *sets]) == 0

@@ -81,8 +81,8 @@ class OfflineIdentification:
 
 def identify_offline(plant: Any, plan: BumpPlan, *, ts: float, output: str, order: int,
                      sensor: Any = None, kind: str = "algebraic", tau_cl: float | None = None,
-                     output_limits: tuple[float | None, float | None] = (None, None)
-                     ) -> OfflineIdentification:
+                     output_limits: tuple[float | None, float | None] = (None, None),
+                     delay_aware: bool = False) -> OfflineIdentification:
     """The whole bump test on a plant model: record, estimate, judge, suggest."""
     record = record_bump(plant, plan, ts=ts, output=output, order=order, sensor=sensor,
                          output_limits=output_limits)
@@ -95,7 +95,8 @@ def identify_offline(plant: Any, plan: BumpPlan, *, ts: float, output: str, orde
     result = OfflineIdentification(record, est, refusals, list(est.warnings) + notes)
     if not refusals:
         try:
-            result.suggestions = suggest_settings(est, plan, kind=kind, tau_cl=tau_cl)
+            result.suggestions = suggest_settings(est, plan, kind=kind, tau_cl=tau_cl,
+                                                  delay_aware=delay_aware)
         except EstimationError as exc:
             result.error = str(exc)
     return result

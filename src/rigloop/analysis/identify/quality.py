@@ -103,7 +103,8 @@ def compare(scenario: Any, sugg: Suggestions, *, duration_s: float | None = None
 
     def model_free(rig, u0):
         params = ControlParams(law=sugg.law, order=order, alpha=sugg.alpha, kp=sugg.kp, kd=sugg.kd,
-                               estimator=sugg.estimator_kind, window_s=sugg.window_s)
+                               estimator=sugg.estimator_kind, window_s=sugg.window_s,
+                               input_delay_s=sugg.input_delay_s)
         return Controller(params, ts=ts, u_min=a.min, u_max=a.max, u_hold=u0)
 
     def simc(rig, u0):

@@ -20,9 +20,15 @@ The rules, in the order they are applied (:func:`suggest_settings`):
    characteristic equation ``s + Kp·e^(−s·θ_loop) = 0`` has only real roots for
    ``Kp·θ_loop <= 1/e`` (a standard result for the first-order delay equation, from memory):
    ``tau_cl >= e·θ_loop``, rounded up to 3.
-4. **gains**: iP (m = 1) ``Kp = 1/tau_cl``; iPD (m = 2) ``ω = 1/tau_cl``, ζ = 1,
+4. **known input delay**: ``control.input_delay_s`` = 0, and the fitted θ is reported. Measured
+   (``bench/control_quality.py --delay-aware``): pairing y with ``u(t − θ)`` — the delay-aware
+   ultra-local model ``y^(m)(t) = F + alpha·u(t − θ)`` — raised the tracking error on every rig
+   of the scenario suite with the gains of rule 3 (the law then answers the reference θ late,
+   while the plain estimate folds part of the delay into F̂). ``delay_aware=True`` sets it to θ
+   (two digits; 0 below one sample period) for such comparisons.
+5. **gains**: iP (m = 1) ``Kp = 1/tau_cl``; iPD (m = 2) ``ω = 1/tau_cl``, ζ = 1,
    ``(Kp, Kd) = (ω², 2ζω)``.
-5. **PID baseline** by the SIMC rules for the fitted model with ``τc = tau_cl`` (the same
+6. **PID baseline** by the SIMC rules for the fitted model with ``τc = tau_cl`` (the same
    closed-loop speed, for a fair comparison) and ``θ = θ_fit + 1.5·Ts``; for m = 2 the rules'
    integrating case.
 """
@@ -48,6 +54,9 @@ TAU_CL_DIVISOR = 5.0
 MIN_TAU_CL_SAMPLES = 5
 #: ... and never below this multiple of the loop's dead time (module docstring, rule 3).
 TAU_CL_PER_DELAY = 3.0
+#: With ``delay_aware``, the fitted dead time goes into ``control.input_delay_s`` from this many
+#: sample periods on; below it, it is within the fit's spread.
+MIN_DELAY_SAMPLES = 1.0
 #: Damping of the suggested iPD.
 IPD_ZETA = 1.0
 #: Longest window suggested (samples): per-sample work grows with it.
@@ -80,6 +89,8 @@ class Suggestions:
     pid_u0: float
     pid_tau_c: float
     pid_theta: float         # dead time used by the SIMC rules (sampling included)
+    theta_s: float = 0.0         # the fitted dead time θ
+    input_delay_s: float = 0.0   # control.input_delay_s suggested (0 unless delay_aware)
     notes: list[str] = field(default_factory=list)
 
     def as_dict(self) -> dict:
@@ -94,7 +105,8 @@ def round_sig(x: float, digits: int) -> float:
 
 
 def suggest_settings(est: BumpEstimates, plan: BumpPlan, *, kind: str = "algebraic",
-                     tau_cl: float | None = None, pid_u0: float | None = None) -> Suggestions:
+                     tau_cl: float | None = None, pid_u0: float | None = None,
+                     delay_aware: bool = False) -> Suggestions:
     """Gains and window for the model-free law, and SIMC gains for the PID baseline (module
     docstring). Raises :class:`EstimationError` when alpha and the gain disagree in sign (the
     verdict refuses those first) and :class:`PlanError` for a ``tau_cl`` below 5 samples."""
@@ -152,10 +164,12 @@ def suggest_settings(est: BumpEstimates, plan: BumpPlan, *, kind: str = "algebra
         notes.append("an integrating output holds still at the input that gives zero rate; the "
                      f"PID bias pid_u0 is set to the safe value {plan.safe:g} — adjust it if the "
                      "rig needs a holding input")
+    theta = max(est.theta or 0.0, 0.0)
+    delay = round_sig(theta, 2) if delay_aware and theta >= MIN_DELAY_SAMPLES * ts else 0.0
     return Suggestions(est.order, law, alpha, tau_cl, rule, loop_delay, round_sig(kp, 3),
                        round_sig(kd, 3), kind, round(n * ts, 9), n, sigma_f, target,
                        round_sig(pid_kp, 3), round_sig(pid_ki, 3), round_sig(pid_kd, 3), u0,
-                       tau_cl, theta_eff, notes)
+                       tau_cl, theta_eff, theta, delay, notes)
 
 
 def config_snippet(s: Suggestions, *, header: str = "") -> str:
@@ -171,6 +185,9 @@ def config_snippet(s: Suggestions, *, header: str = "") -> str:
         (f"  alpha: {_num(s.alpha)}", "measured initial slope per unit input (2 digits)"),
         (f"  kp: {_num(s.kp)}", kp_note),
         (f"  kd: {_num(s.kd)}", "" if s.order == 2 else "not used by iP"),
+        (f"  input_delay_s: {_num(s.input_delay_s)}",
+         f"fitted dead time {s.theta_s:.3g} s; "
+         "0: F folds the delay in (docs/identify.md)"),
         ("  estimator:", ""),
         (f"    kind: {s.estimator_kind}", ""),
         (f"    window_s: {_num(s.window_s)}", f"{s.window_samples} samples, from the measured noise"),
@@ -192,6 +209,7 @@ def config_snippet(s: Suggestions, *, header: str = "") -> str:
 def snippet_overrides(s: Suggestions) -> list[str]:
     """The snippet's active keys as ``--set`` overrides (``KEY=VALUE``)."""
     return [f"control.alpha={_num(s.alpha)}", f"control.kp={_num(s.kp)}", f"control.kd={_num(s.kd)}",
+            f"control.input_delay_s={_num(s.input_delay_s)}",
             f"control.estimator.kind={s.estimator_kind}",
             f"control.estimator.window_s={_num(s.window_s)}"]
 
