@@ -278,15 +278,17 @@ def render_text(cfg, plan, est, sugg, snippet, session, written, *, refusals=(),
         summary = "" if mean is None else f"{_g(mean):>10}" + (f" ± {_g(spread, 2)}" if spread is not None else "")
         w(f"  {label:<42}" + "".join(f"{_g(v, 3):>10}" for v in vals) + f"   {summary}  {unit}\n")
 
-    row("alpha (initial slope per unit du)", "alpha", est.alpha, est.alpha_spread, f"{rate_unit} per {au}")
-    row("  without the correction for the motion", "alpha_uncorrected", unit=f"{rate_unit} per {au}")
+    row("alpha (initial slope of y^(m) per unit du)", "alpha", est.alpha, est.alpha_spread,
+        f"{rate_unit} per {au}")
+    row("  K/tau of the fit", "alpha_fit", unit=f"{rate_unit} per {au}")
+    row("  initial slope, model-free (the check)", "alpha_slope", unit=f"{rate_unit} per {au}")
+    row("    without the correction for the motion", "alpha_uncorrected", unit=f"{rate_unit} per {au}")
     row("static gain K (fit)" + (" of the rate" if m == 2 else ""), "gain_fit", est.gain, est.gain_spread,
         gain_unit)
     row("  from the steady levels, drift removed", "gain", est.gain_levels, unit=gain_unit)
     row("time constant tau", "tau", est.tau, unit="s")
     row("dead time theta", "theta", est.theta, unit="s")
     row("drift (level or rate per s)", "drift", unit=f"{yu}/s" if m == 1 else f"{rate_unit}")
-    w(f"  {'alpha implied by the fit, K/tau':<42}{_g(est.alpha_fopdt):>10}  {rate_unit} per {au}\n")
     for label, sp in (("alpha of the steps up", est.alpha_up), ("alpha of the steps down", est.alpha_down)):
         if sp is not None:
             w(f"  {label:<42}{_g(sp.mean):>10} ± {_g(sp.spread, 2)} ({sp.n} steps)\n")
