@@ -115,10 +115,11 @@ def fan_like_plan(**kw) -> BumpPlan:
 def first_order_record(plan: BumpPlan, ts: float, k: float, tau: float, theta: float = 0.0, *,
                        order: int = 1, sigma: float = 0.0, seed: int = 0, dead_zone: float = 0.0,
                        base: float = 0.0) -> tuple[np.ndarray, np.ndarray, np.ndarray, Schedule]:
-    """(t, y, applied u, schedule) of a linear plant (lsim) driven by the bump profile; the plant
-    sees ``max(u − dead_zone, 0)``; white noise of ``sigma`` on y."""
+    """(t, y, applied u, schedule) of a linear plant (lsim) driven by the bump profile; with a
+    dead zone the plant sees ``max(u − dead_zone, 0)``; white noise of ``sigma`` on y."""
     t, u, sched = slewed_bump(plan, ts)
-    y = base + lsim_fopdt(order, k, tau, theta, t, np.maximum(u - dead_zone, 0.0))
+    drive = np.maximum(u - dead_zone, 0.0) if dead_zone else u
+    y = base + lsim_fopdt(order, k, tau, theta, t, drive)
     if sigma:
         y = y + np.random.default_rng(seed).normal(0.0, sigma, t.size)
     return t, y, u, sched
@@ -733,3 +734,21 @@ def test_ctrl_c_during_the_bump_test_exits_130(tmp_path, capsys):
     assert "nothing estimated" in err
     [folder] = list(tmp_path.iterdir())
     assert yaml.safe_load((folder / "session.yaml").read_text())["outcome"] == "stopped"
+
+
+def test_an_encoder_sets_the_window_of_a_position_rig():
+    """An order-2 output read in encoder counts: the noise floor is the quantizer's q/√12 (standard
+    result), and the window is long enough that F̂'s noise from it meets the target."""
+    plan = plan_bump(-12.0, 12.0, 0.0, None, rate_hz=500.0, at=0.0, step=4.0, settle_s=1.0,
+                     hold_s=1.0, steps=4)
+    ts = 0.002
+    q = 2 * math.pi / 1024
+    t, y, u, sched = first_order_record(plan, ts, 0.5, 0.05, order=2)
+    y = q * np.round(y / q)
+    est = analyse_bump(t, y, u, order=2, plan=plan, schedule=sched, ts=ts)
+    assert est.noise.quantum == pytest.approx(q, rel=1e-6)
+    assert est.noise_std >= q / math.sqrt(12) * (1 - 1e-9)
+    assert est.alpha == pytest.approx(0.5 / 0.05, rel=0.15)
+    s = suggest_settings(est, plan)
+    assert s.law == "iPD" and s.window_samples >= shortest_window("algebraic", 2)
+    assert (q / math.sqrt(12)) * noise_gain("algebraic", 2, s.window_samples, ts) <= s.sigma_f_target
