@@ -33,7 +33,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     add_config_arguments(parser)
     parser.add_argument("--at", type=float, metavar="LEVEL",
                         help="operating level u0 of the actuator (default: the middle of its range; "
-                             "halfway from safe to max when safe is the middle)")
+                             "halfway from safe to max when safe is the middle; the safe value for "
+                             "an order-2 output)")
     parser.add_argument("--step", type=float, metavar="DU",
                         help="size of the step du (default: 10 %% of the actuator range; negative "
                              "steps down first); u0 ± du must stay inside the range")
@@ -83,7 +84,8 @@ def run(args: argparse.Namespace) -> int:
         plan = plan_bump(a.min, a.max, a.safe, a.slew_per_s, rate_hz=cfg.device.rate_hz, at=args.at,
                          step=args.step, settle_s=args.settle, hold_s=args.hold,
                          ramp_s=args.ramp, steps=args.steps, budget_s=args.budget,
-                         max_duration_s=cfg.limits.max_duration_s, unit=a.unit)
+                         max_duration_s=cfg.limits.max_duration_s, unit=a.unit,
+                         order=cfg.control.order)
     except PlanError as exc:
         return _usage(str(exc))
     return run_bump_test(cfg, plan, tau_cl=args.tau_cl, out_dir=args.out, write=args.write,
@@ -109,8 +111,9 @@ def run_bump_test(cfg, plan, *, tau_cl=None, out_dir=None, write=None, as_json=F
     stream = stream or sys.stdout
     a = cfg.actuator
     unit = f" {a.unit}" if a.unit else ""
-    print(f"bump test on {cfg.rig}: {a.name} {plan.safe:g} -> {plan.u0:g}{unit} over "
-          f"{plan.ramp_s:.3g} s, up to {plan.steps} steps of ±{abs(plan.du):g}{unit} around it, "
+    start = (f"{a.name} {plan.safe:g} -> {plan.u0:g}{unit} over {plan.ramp_s:.3g} s" if plan.ramp_s
+             else f"{a.name} at {plan.u0:g}{unit}")
+    print(f"bump test on {cfg.rig}: {start}, up to {plan.steps} steps of ±{abs(plan.du):g}{unit} around it, "
           f"each held until settled, at most {plan.duration_s:.3g} s. The rig moves on its own: keep "
           "the hardwired e-stop within reach (safety.md); Ctrl-C stops at once.", file=sys.stderr)
     engine = Engine(cfg, out_dir=out_dir, duration_s=plan.duration_s, autostart=True, front_end="cli",

@@ -113,15 +113,20 @@ class BumpPlan:
                 "duration_s": self.duration_s, "unit": self.unit}
 
 
-def default_operating_point(u_min: float, u_max: float, safe: float) -> float:
+def default_operating_point(u_min: float, u_max: float, safe: float, order: int = 1) -> float:
     """The middle of [u_min, u_max]; halfway from ``safe`` to ``u_max`` when the middle is the
-    safe value.
+    safe value; the safe value itself for an integrating output (m = 2).
+
+    Why the safe value for m = 2: at any other constant input a position runs away (into its
+    limit); around the input that holds it still, the steps both ways bring it back.
 
     Why not ``safe`` itself: on our rigs (and most) the safe value is "off" — 0 % duty, 0 V —
     where the output does not respond smoothly (a stopped fan, a motor held by static friction).
     A bipolar drive has its safe value in the middle of its range, so the middle is no good
     either; halfway to the top of the range runs the rig forward at a moderate level.
     """
+    if order == 2:
+        return float(safe)
     middle = 0.5 * (u_min + u_max)
     if abs(middle - safe) <= 1e-9 * (u_max - u_min):
         return 0.5 * (safe + u_max)
@@ -133,7 +138,7 @@ def plan_bump(u_min: float, u_max: float, safe: float, slew_per_s: float | None,
               settle_s: float | None = None, hold_s: float | None = None,
               ramp_s: float | None = None, steps: int | None = None,
               budget_s: float | None = None, max_duration_s: float | None = None,
-              unit: str = "") -> BumpPlan:
+              unit: str = "", order: int = 1) -> BumpPlan:
     """Check the wanted bump test against the actuator range and the run limits.
 
     Raises :class:`PlanError` naming the option (``--at``, ``--step``, ``--settle``, ``--hold``,
@@ -143,7 +148,7 @@ def plan_bump(u_min: float, u_max: float, safe: float, slew_per_s: float | None,
     """
     span = u_max - u_min
     u_text = f" {unit}" if unit else ""
-    u0 = default_operating_point(u_min, u_max, safe) if at is None else _finite("--at", at)
+    u0 = default_operating_point(u_min, u_max, safe, order) if at is None else _finite("--at", at)
     if not u_min <= u0 <= u_max:
         raise PlanError("--at", f"--at {u0:g}: the operating level must lie in the actuator range "
                                 f"[{u_min:g}, {u_max:g}]{u_text}")
