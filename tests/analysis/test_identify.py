@@ -753,3 +753,23 @@ def test_an_encoder_sets_the_window_of_a_position_rig():
     s = suggest_settings(est, plan)
     assert s.law == "iPD" and s.window_samples >= shortest_window("algebraic", 2)
     assert (q / math.sqrt(12)) * noise_gain("algebraic", 2, s.window_samples, ts) <= s.sigma_f_target
+
+
+@pytest.mark.slow
+def test_geared_arm_through_the_engine_refuses_without_a_trip(tmp_path, capsys):
+    """A position rig with gear play and a weight that changes with the angle, lockstep through
+    the engine: the limits guard keeps the arm inside its position limits, and the test refuses
+    (exit 1, a reason and what to try, no snippet) rather than suggest gains from a model that
+    does not describe the rig."""
+    arm = str(ROOT / "configs" / "scenarios" / "geared_arm_backlash.yaml")
+    code = main(["identify", arm, *LOCKSTEP, "--json", "--out", str(tmp_path)])
+    captured = capsys.readouterr()
+    assert code == 1, captured.err
+    report = json.loads(captured.out)
+    assert report["snippet"] is None and report["suggestions"] is None
+    assert report["refusals"] and all(r["reason"] and r["advice"] for r in report["refusals"])
+    assert "refused" in captured.err
+    [folder] = list(tmp_path.iterdir())
+    meta = yaml.safe_load((folder / "session.yaml").read_text())
+    assert meta["outcome"] == "completed"                     # no trip: the guard held
+    assert meta["identify"]["refusals"] == report["refusals"]
