@@ -19,7 +19,6 @@ import json
 import math
 import os
 import signal
-from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -348,6 +347,19 @@ def test_a_noise_free_bump_gives_the_exact_model(order):
     assert est.theta == pytest.approx(theta, abs=0.05 * ts)
     assert est.noise_std < 1e-6 * k
     assert len(est.steps) == 4 and [s.direction for s in est.steps] == ["up", "down", "down", "up"]
+
+
+def test_fit_on_a_level_that_had_not_settled():
+    """The free motion before the step (an exponential approach) is modelled, not mistaken for θ."""
+    ts = 0.002
+    t = np.arange(2500) * ts
+    i0 = 500
+    u = np.where(t >= t[i0], 2.0, 0.0)
+    k, tau = 10.0, 0.5
+    y = lsim_fopdt(1, k, tau, 0.0, t, u) - 3.0 * np.exp(-t / tau)   # still rising 3 units
+    fit = fit_fopdt(1, t[300:], y[300:], t[i0], np.array([t[i0]]), np.array([2.0]), ts=ts)
+    assert fit.gain == pytest.approx(k, rel=1e-4) and fit.tau == pytest.approx(tau, rel=1e-4)
+    assert fit.theta < 0.01 * ts and abs(fit.drift) < 1e-6
 
 
 def test_a_drifting_load_is_removed_using_the_trends_before_and_after():

@@ -42,7 +42,7 @@ from rigloop.analysis.identify.fitting import EstimationError
 from rigloop.analysis.identify.plan import BumpPlan, PlanError
 from rigloop.analysis.identify.steps import BumpEstimates
 from rigloop.control.tuning import effective_delay, ip_gains, ipd_gains, simc_pid
-from rigloop.control.window_choice import input_lag, shortest_window, window_for_noise
+from rigloop.control.window_choice import input_lag, window_for_noise
 
 #: Target of the suggested estimator window: noise of F̂ at most this fraction of |alpha·du|
 #: (our choice: the law then acts on F̂ errors a tenth of the step it was identified with).

@@ -32,7 +32,7 @@ import math
 from dataclasses import asdict, dataclass
 
 from rigloop.analysis.identify.plan import BumpPlan
-from rigloop.analysis.identify.steps import RESPONSE_SIGMAS, BumpEstimates
+from rigloop.analysis.identify.steps import BumpEstimates
 
 #: The output must move by at least this many noise standard deviations over a step (common
 #: practice: about where a step stands out of the noise on a plot).
