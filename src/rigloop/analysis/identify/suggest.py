@@ -130,6 +130,12 @@ def suggest_settings(est: BumpEstimates, plan: BumpPlan, *, kind: str = "algebra
     if sigma_f > target * (1 + 1e-9):
         notes.append(f"even a window of {n} samples leaves F noise of {sigma_f:.3g} (more than "
                      f"{100 * NOISE_FRACTION:g} % of alpha·du): use a larger --step or a quieter sensor")
+    q = est.noise.quantum
+    if q > 0 and est.noise.sigma_quantum >= est.noise.sigma_diff:
+        notes.append(f"the output is read in steps of {q:.3g} and its noise is mostly that "
+                     f"rounding (q/sqrt(12) = {est.noise.sigma_quantum:.3g}); the window allows "
+                     "for it, and control.quantization_band (default 1 count) keeps a still output "
+                     "from dithering the actuator")
     theta_eff = effective_delay(max(est.theta or 0.0, 0.0), ts)
     loop_delay = theta_eff + input_lag(kind, est.order, n, ts)
     floor = MIN_TAU_CL_SAMPLES * ts
