@@ -292,7 +292,8 @@ def render_text(cfg, plan, est, sugg, snippet, session, written, *, refusals=(),
     row("time constant tau", "tau", est.tau, unit="s")
     row("dead time theta", "theta", est.theta, unit="s")
     row("drift (level or rate per s)", "drift", unit=f"{yu}/s" if m == 1 else f"{rate_unit}")
-    for label, sp in (("alpha of the steps up", est.alpha_up), ("alpha of the steps down", est.alpha_down)):
+    for label, sp in (("alpha of the steps up", est.alpha_up), ("alpha of the steps down", est.alpha_down),
+                      ("K of the steps up", est.gain_up), ("K of the steps down", est.gain_down)):
         if sp is not None:
             w(f"  {label:<42}{_g(sp.mean):>10} ± {_g(sp.spread, 2)} ({sp.n} steps)\n")
     w(f"  {'noise floor':<42}{_g(est.noise_std):>10}  {yu} ({est.noise.source})\n")

@@ -125,6 +125,8 @@ class BumpEstimates:
     alpha_fopdt: float | None        # K/τ of the fitted model: the alpha it implies (a cross-check)
     alpha_up: Spread | None = None
     alpha_down: Spread | None = None
+    gain_up: Spread | None = None
+    gain_down: Spread | None = None
     dead_zone: DeadZone | None = None
     warnings: list[str] = field(default_factory=list)
 
@@ -296,6 +298,8 @@ def analyse_bump(t: np.ndarray, y: np.ndarray, u: np.ndarray, *, order: int, pla
                         gain.mean, tau.mean, theta.mean, sigma, noise, alpha_fopdt,
                         Spread.of(s.alpha for s in good if s.direction == "up"),
                         Spread.of(s.alpha for s in good if s.direction == "down"),
+                        Spread.of(s.gain_fit for s in good if s.direction == "up"),
+                        Spread.of(s.gain_fit for s in good if s.direction == "down"),
                         warnings=warnings)
     est.dead_zone = find_dead_zone(t, y, u, order=order, ramp_end=plan.ramp_s, safe=plan.safe,
                                    u0=plan.u0, span=plan.u_max - plan.u_min, sigma=sigma, ts=ts,

@@ -48,6 +48,8 @@ SPREAD_NOISE_FACTOR = 3.0
 FIT_RMS_NOISE = 2.0
 #: Up and down disagree when their means differ by more than this many combined standard errors.
 UP_DOWN_SIGMAS = 3.0
+#: ... and by more than this fraction of their mean (smaller differences do not change a tuning).
+UP_DOWN_FRACTION = 0.05
 #: The initial slope and the fit's K/τ are compared against this relative difference.
 FIT_SLOPE_TOLERANCE = 0.2
 
@@ -130,21 +132,27 @@ def judge(est: BumpEstimates, plan: BumpPlan) -> tuple[list[Refusal], list[str]]
             "the measured slope",
             "the slope window is long against the time constant or the output hardly moved: "
             "use a larger --step, or a faster sample rate"))
-    up, dn = est.alpha_up, est.alpha_down
-    if up is not None and dn is not None and not refusals:
-        se = math.hypot(up.spread / math.sqrt(up.n) if up.n > 1 else 0.0,
-                        dn.spread / math.sqrt(dn.n) if dn.n > 1 else 0.0)
-        noise_se = math.sqrt(sum((s.alpha_sigma or 0.0) ** 2 for s in good) / len(good))
-        if abs(up.mean - dn.mean) > UP_DOWN_SIGMAS * max(se, noise_se):
-            notes.append(f"the steps up and down disagree on alpha beyond their spread "
-                         f"({up.mean:.3g} vs {dn.mean:.3g}): the rig is not linear over the step "
-                         "(its slope changes with the input, or backlash); the mean is used")
-    if est.alpha_fopdt is not None and est.alpha and \
-            abs(est.alpha - est.alpha_fopdt) > FIT_SLOPE_TOLERANCE * abs(est.alpha):
-        notes.append(f"the initial slope (alpha {est.alpha:.3g}) and the fitted model (K/τ "
-                     f"{est.alpha_fopdt:.3g}) disagree by more than "
-                     f"{100 * FIT_SLOPE_TOLERANCE:.0f} %: the response is not first order (a second "
-                     "lag, backlash, a nonlinearity) or noisy")
+    if not refusals:
+        for what, up, dn in (("alpha", est.alpha_up, est.alpha_down),
+                             ("the static gain", est.gain_up, est.gain_down)):
+            if up is None or dn is None or up.n < 2 or dn.n < 2:
+                continue
+            se = math.hypot(up.spread / math.sqrt(up.n), dn.spread / math.sqrt(dn.n))
+            diff = abs(up.mean - dn.mean)
+            if diff > UP_DOWN_SIGMAS * se and diff > UP_DOWN_FRACTION * abs(up.mean + dn.mean) / 2:
+                notes.append(f"the steps up and down disagree on {what} beyond their spread "
+                             f"({up.mean:.3g} ± {up.spread:.2g} vs {dn.mean:.3g} ± {dn.spread:.2g}): "
+                             "the rig is not linear over the step (its slope changes with the "
+                             "input, or backlash); the mean is used")
+    slopes = [s for s in good if s.alpha_slope is not None and s.alpha_sigma is not None]
+    if slopes and est.alpha_fopdt:
+        slope = sum(s.alpha_slope for s in slopes) / len(slopes)
+        slope_se = math.sqrt(sum(s.alpha_sigma ** 2 for s in slopes)) / len(slopes)
+        if abs(slope - est.alpha_fopdt) > FIT_SLOPE_TOLERANCE * abs(est.alpha_fopdt) + 3 * slope_se:
+            notes.append(f"the model-free initial slope ({slope:.3g} ± {slope_se:.2g}) and the "
+                         f"fitted model (K/τ {est.alpha_fopdt:.3g}) disagree by more than "
+                         f"{100 * FIT_SLOPE_TOLERANCE:.0f} % and the slope's noise: the response is "
+                         "not first order (a second lag, backlash, a nonlinearity)")
     dz = est.dead_zone
     if dz is not None and dz.found and dz.u_start is not None:
         direction = 1.0 if plan.u0 >= plan.safe else -1.0
