@@ -785,3 +785,25 @@ def test_geared_arm_through_the_engine_refuses_without_a_trip(tmp_path, capsys):
     meta = yaml.safe_load((folder / "session.yaml").read_text())
     assert meta["outcome"] == "completed"                     # no trip: the guard held
     assert meta["identify"]["refusals"] == report["refusals"]
+
+
+def test_steps_up_and_down_that_disagree_beyond_their_spread_are_noted():
+    """A rig that rises faster than it falls (τ 0.3 s up, 0.4 s down): alpha differs between the
+    steps up and down by a third, far beyond their spread; the mean is used, with a note."""
+    plan = fan_like_plan(settle_s=3.0, hold_s=3.0)
+    ts = 0.002
+    t, u, sched = slewed_bump(plan, ts)
+    k, y = 30.0, np.zeros(t.size)
+    for i in range(1, t.size):              # Euler at 1/10 of a sample (our reference model)
+        yi = y[i - 1]
+        for _ in range(10):
+            target = k * u[i - 1]
+            yi += ts / 10 * (target - yi) / (0.3 if target > yi else 0.4)
+        y[i] = yi
+    y += np.random.default_rng(3).normal(0.0, 2.0, t.size)     # 2 units of noise on 300
+    est = analyse_bump(t, y, u, order=1, plan=plan, schedule=sched, ts=ts)
+    assert est.alpha_up.mean == pytest.approx(k / 0.3, rel=0.05)
+    assert est.alpha_down.mean == pytest.approx(k / 0.4, rel=0.05)
+    refusals, notes = judge(est, plan)
+    assert refusals == []
+    assert any("up and down disagree on alpha" in n for n in notes)
