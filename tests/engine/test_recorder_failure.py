@@ -185,7 +185,7 @@ def small_tmpfs(tmp_path):
         subprocess.run(["umount", "-l", str(point)], capture_output=True)
 
 
-def test_real_full_disk_on_a_small_tmpfs(tmp_path, small_tmpfs):
+def test_real_full_disk_on_a_small_tmpfs(tmp_path, small_tmpfs, capsys):
     """The same on a real file system that fills up: a filler takes the rest of the space
     after 1 s of running, as another program on the same disk would."""
     from rigloop.engine.loop import Engine
@@ -220,3 +220,46 @@ def test_real_full_disk_on_a_small_tmpfs(tmp_path, small_tmpfs):
     assert meta["outcome"] == "tripped" and meta["trip"]["cause"] == "recorder-failed"
     header = (result.session_dir / "samples.csv").read_text().splitlines()[0]
     assert assert_whole_rows(result.session_dir / "samples.csv", header.count(",") + 1) > 0
+    err = capsys.readouterr().err            # engine.log could not be written either: quietly
+    assert "Traceback" not in err and "Logging error" not in err
+
+
+def test_a_write_started_by_a_full_buffer_counts_as_the_recorders_failure(tmp_path):
+    """Rows arriving faster than the flush timer are written from on_tick: an error there is
+    the recorder's failure too, and close() records it in session.yaml."""
+    from rigloop.engine.durable_files import RowFile
+    from rigloop.engine.recorder import SessionRecorder
+    from rigloop.engine.records import TickRecord
+
+    cfg = fan_config(tmp_path)
+    folder = tmp_path / "session"
+    folder.mkdir()
+    headers = 600                               # both headers fit, the first rows do not
+    rec = SessionRecorder(folder, cfg, device_url="test://", opener=samples_opener(headers))
+    tick = TickRecord(0.5, 1, 1.0, 0.0, 1.0, 0.0, 2.0, 2.0, 0.1, "running", [1.0, 0.1, 2.0, 25.0], 33)
+    with pytest.raises(OSError):
+        for _ in range(RowFile.MAX_PENDING_ROWS):
+            rec.on_tick(tick)
+    assert rec.failure is not None and rec.failure.errno == errno.ENOSPC
+    rec.close(outcome="tripped", stop_reason="disk full", trip={"cause": "recorder-failed"}, summary={})
+    meta = yaml.safe_load((folder / "session.yaml").read_text())
+    assert meta["outcome"] == "tripped" and "ENOSPC" in meta["recording_error"]
+    assert (folder / "samples.csv").read_bytes().endswith(b"\n")
+
+
+def test_an_internal_error_is_a_recorded_trip_not_a_traceback(tmp_path, capsys, monkeypatch):
+    from rigloop.cli import main
+    from rigloop.engine.loop import Engine
+
+    def broken(self, now):
+        raise RuntimeError("injected")
+
+    monkeypatch.setattr(Engine, "_periodic", broken)
+    out = tmp_path / "sessions"
+    code = main(["run", str(DEMO_FAN), "--out", str(out), "--quiet", "--set", "device.sim.clock=lockstep"])
+    err = capsys.readouterr().err
+    assert code == 1 and "Traceback" not in err and "internal error (RuntimeError: injected)" in err
+    folder = next(out.iterdir())
+    meta = yaml.safe_load((folder / "session.yaml").read_text())
+    assert meta["outcome"] == "tripped" and meta["trip"]["cause"] == "internal-error"
+    assert "Traceback" in (folder / "engine.log").read_text()

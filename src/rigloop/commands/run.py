@@ -68,6 +68,12 @@ def run_headless(cfg, *, duration_s=None, out_dir=None, quiet=False, stream=None
         if engine.session_dir:
             print(f"session: {engine.session_dir}", file=sys.stderr)
         return EXIT_INTERNAL
+    except Exception as exc:  # noqa: BLE001 - the engine has stopped the rig and recorded the trip
+        print(f"rigloop run: internal error ({type(exc).__name__}: {exc}); the rig was stopped and "
+              f"the trip recorded (internal-error); the traceback is in engine.log", file=sys.stderr)
+        if engine.session_dir:
+            print(f"session: {engine.session_dir}", file=sys.stderr)
+        return EXIT_INTERNAL
     finally:
         for s, h in old.items():
             signal.signal(s, h)

@@ -107,6 +107,25 @@ def channel_names_are_unique_and_free(ctx: RuleContext) -> Iterator[Problem]:
         seen.setdefault(name, index)
 
 
+#: Smallest |channels[].scale|: the device sends raw = (value - offset) / scale as float32, which
+#: overflows (and the link rejects the frame) once a tiny scale blows raw values up.
+CHANNEL_SCALE_MIN = 1e-9
+
+
+@rule
+def channel_scale_is_not_tiny(ctx: RuleContext) -> Iterator[Problem]:
+    channels = get(ctx.root, "channels")
+    if not isinstance(channels, list):
+        return
+    for index, channel in enumerate(channels):
+        scale = channel.get("scale", INVALID) if isinstance(channel, dict) else INVALID
+        if _valid(scale) and abs(scale) < CHANNEL_SCALE_MIN:
+            yield Problem(f"channels.{index}.scale", scale,
+                          f"is smaller than {CHANNEL_SCALE_MIN:g} in size: raw values (value - offset) "
+                          f"/ scale would overflow the wire's float32; use a scale between "
+                          f"{CHANNEL_SCALE_MIN:g} and 1e9 (negative for a reversed sensor)")
+
+
 @rule
 def actuator_range(ctx: RuleContext) -> Iterator[Problem]:
     low, high, safe = (get(ctx.root, f"actuator.{k}") for k in ("min", "max", "safe"))

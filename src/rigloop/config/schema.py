@@ -151,7 +151,7 @@ class Integer(ValueType):
 
 @dataclass(frozen=True)
 class Flag(ValueType):
-    """true or false (YAML's yes/no/on/off are not accepted: they surprise people)."""
+    """true or false (YAML 1.1 also reads yes/no/on/off as these; quoted text is not a flag)."""
 
     def describe(self) -> str:
         return "true or false"
@@ -353,13 +353,17 @@ _LEVEL_KINDS = ("levels", "ramp", "sine", "chirp")
 
 # Hard bounds where no sane use exists (past them a run fails or a protection is void):
 RIG_NAME_MAX = 64              # the session folder name is "<UTC time>_<rig>"; file names stop at 255
-WATCHDOG_MS_MAX = 10000.0      # the rig holds its last command this long if the host dies
+WATCHDOG_MS_MAX = 60000.0      # the rig holds its last command this long if the host dies;
+                               # rigloop check warns far below (config/loosened.py)
 LINK_ERRORS_MAX = 10000        # rejected frames per window: more is no check at all
 OVERRUNS_MAX = 1000000         # late ticks per window (20 kHz x 50 s)
 MAX_DURATION_S_MAX = 604800.0  # one week; a longer unattended run needs its own supervision
 COUNT_WINDOW_S_MAX = 60.0      # a burst window longer than a minute is no burst
 BLEND_S_MIN = 1e-6             # the wire's time resolution (1 us); shorter is a raw step
 CHANNEL_SCALE_MAX = 1e9        # raw values travel as float32: scale and offset keep them finite
+FLOAT32_MAX = 3.4028234663852886e38   # actuator values travel as float32 (CONFIGURE's clamps)
+_WIRE = Number(ge=-FLOAT32_MAX, le=FLOAT32_MAX)
+SIM_NOISE_MAX = 1000.0         # x nominal sensor noise; far past any rig, short of float overflow
 _BLEND = Number(gt=0, ge=BLEND_S_MIN)
 _NUM = Number()
 _POS = Number(gt=0)
@@ -388,7 +392,8 @@ SCHEMA: tuple[Key, ...] = (
     Key("device.sim.clock", Choice(("realtime", "lockstep")), "realtime",
         "realtime: samples on a wall-clock timer; lockstep: next sample as soon as the command "
         "arrives (deterministic, faster than real time)"),
-    Key("device.sim.noise", _NONNEG, 1.0, "sensor noise scale: 0 = none, 1 = nominal"),
+    Key("device.sim.noise", Number(ge=0, le=SIM_NOISE_MAX), 1.0,
+        "sensor noise scale: 0 = none, 1 = nominal"),
     Key("device.sim.seed", Integer(ge=0, le=2**32 - 1), 1, "random seed of noise and faults"),
     Key("device.sim.params", FreeMapping(), {},
         "plant parameter overrides by name (checked against the plant's parameters)"),
@@ -462,9 +467,9 @@ SCHEMA: tuple[Key, ...] = (
     Key("actuator", Section(), REQUIRED, "the actuator the law drives"),
     Key("actuator.name", Text(NAME_PATTERN, NAME_DOC), "u", "actuator name, for labels"),
     Key("actuator.unit", Text(allow_empty=True), "", "actuator unit"),
-    Key("actuator.min", _NUM, REQUIRED, "lowest command; the host and the device clamp to it"),
-    Key("actuator.max", _NUM, REQUIRED, "highest command; the host and the device clamp to it"),
-    Key("actuator.safe", _NUM, REQUIRED,
+    Key("actuator.min", _WIRE, REQUIRED, "lowest command; the host and the device clamp to it"),
+    Key("actuator.max", _WIRE, REQUIRED, "highest command; the host and the device clamp to it"),
+    Key("actuator.safe", _WIRE, REQUIRED,
         "value commanded when idle, stopped or tripped; min <= safe <= max"),
     Key("actuator.slew_per_s", _POS, None,
         "largest change per second [unit/s]; null = no slew limit", nullable=True),

@@ -91,7 +91,8 @@ def recording_dir_problem(folder: Path) -> str | None:
 
 
 def mb(n: int) -> str:
-    return f"{n / 1e6:.3g} MB"
+    """Bytes for people: ``2.91 MB``, ``77.9 GB``."""
+    return f"{n / 1e9:.3g} GB" if n >= 1e9 else f"{n / 1e6:.3g} MB"
 
 
 def space_problem(cfg, folder: Path, duration_s: float | None = None) -> str | None:

@@ -335,16 +335,20 @@ class Engine(SessionLifecycle, FrontEndRequests):
         self.link.send(Stop(reason))
         # Judge only samples the device sent after it could have seen this STOP: not those
         # already received (a frozen host reads a backlog of ARMED samples together with the
-        # watchdog FAULT), nor, where the device clock's offset is known, those sent earlier.
+        # watchdog FAULT), nor - on a real-time clock - those the device sent while the host was
+        # not reading: the device's clock ran on by the wall time since the newest sample came.
         self._stop_check = self._rx_newest_seq
-        offset = getattr(self, "min_offset", None)
-        self._stop_dev_t = time.perf_counter() - offset if offset is not None else None
+        if self.realtime and self.t_last is not None:
+            self._stop_dev_t = self.t_last + max(0.0, time.perf_counter() - self.last_sample_host)
+        else:
+            self._stop_dev_t = None
 
     def _sent_after_stop(self, seq: int, t: float) -> bool:
         """True when sample ``seq`` (device time ``t``) left the device after STOP reached it:
-        two sequence numbers past the newest sample on the host when STOP went out (one may be
-        in flight), and, with a known clock offset, a period past STOP's estimated device time."""
-        if ((seq - self._stop_check) & 0xFFFFFFFF) < 2 or ((seq - self._stop_check) & 0xFFFFFFFF) >= 1 << 31:
+        two sequence numbers past the newest sample received when STOP went out (one may be in
+        flight) and, on a real-time clock, a period past STOP's estimated device time."""
+        ahead = (seq - self._stop_check) & 0xFFFFFFFF
+        if ahead < 2 or ahead >= 1 << 31:
             return False
         return self._stop_dev_t is None or t >= self._stop_dev_t + self.period
 
@@ -531,9 +535,9 @@ class Engine(SessionLifecycle, FrontEndRequests):
         if getattr(sub, "critical", False):
             self.subscribers.remove(sub)
             why = describe_os_error(exc) if isinstance(exc, OSError) else f"{type(exc).__name__}: {exc}"
-            log.error("recorder failed: %s", why)
             self._trip(Trip("recorder-failed", f"the recorder could not write ({why}); stopped rather "
-                                               f"than running unrecorded", t=self.t_last))
+                                               f"than running unrecorded", t=self.t_last))   # STOP first
+            log.error("recorder failed: %s", why)
         else:
             log.warning("display subscriber %r failed: %s (removed)", sub, exc)
             self.subscribers.remove(sub)

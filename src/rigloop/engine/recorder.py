@@ -124,7 +124,7 @@ class SessionRecorder:
             "plan": None,
             "config": cfg.raw,
         }
-        self.failure: OSError | None = None
+        self._failure: OSError | None = None
         self.meta_error: OSError | None = None
         self._meta_file = ReservedTextFile(self.folder / "session.yaml", yaml_text(self.meta))
         self._samples = RowFile(self.folder / "samples.csv", opener)
@@ -139,6 +139,12 @@ class SessionRecorder:
         self._last_flush = time.monotonic()
         self.rows = 0
         self.closed = False
+
+    @property
+    def failure(self) -> OSError | None:
+        """The first write error of either file (from a flush, or from a write a full buffer
+        started inside on_tick), else None."""
+        return self._failure or self._samples.failed or self._events_rows.failed
 
     def set_device_hello(self, hello: dict) -> None:
         self.update_meta(device={**self.meta["device"], "hello": hello})
@@ -169,9 +175,8 @@ class SessionRecorder:
             try:
                 rows.flush()
             except OSError as exc:
-                self.failure = exc
-        if self.failure is not None:
-            raise self.failure
+                self._failure = self._failure or exc
+                raise                       # at once: the engine stops the rig before anything else
 
     def close(self, *, outcome: str, stop_reason: str | None, trip: dict | None, summary: dict,
               plan: dict | None = None) -> None:
@@ -184,7 +189,7 @@ class SessionRecorder:
             try:
                 rows.close()
             except OSError as exc:
-                self.failure = self.failure or exc
+                self._failure = self._failure or exc
         self.meta.update(outcome=outcome, stop_reason=stop_reason, trip=trip, summary=summary,
                          ended_utc=utc_now_iso())
         if self.failure is not None:

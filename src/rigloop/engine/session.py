@@ -107,16 +107,17 @@ class SessionLifecycle:
 
     def _take_scheduling(self) -> dict:
         """Ask for real-time scheduling when configured and meaningful; say what was obtained."""
-        from rigloop.engine.priority import raise_priority
+        from rigloop.engine import priority
 
         asked = bool(self.cfg.engine.realtime) and self.realtime
         if not self.cfg.engine.realtime:
-            text = "scheduling: not changed, normal priority (engine.realtime: false)"
+            obtained, text = "normal", "scheduling: not changed, normal priority (engine.realtime: false)"
         else:
-            text = raise_priority(realtime=asked)
+            obtained, text = priority.request_priority(realtime=asked)
         if self.cfg.engine.realtime and not self.realtime:
             text += " (lockstep simulation: device time is not wall time)"
-        info = {"asked": "SCHED_FIFO" if asked else "none", "result": text.removeprefix("scheduling: ")}
+        info = {"asked": "SCHED_FIFO" if asked else "none", "obtained": obtained,
+                "result": text.removeprefix("scheduling: ")}
         log.info(text)
         self._emit(EventRecord("scheduling", text))
         if self.recorder is not None:
@@ -153,10 +154,14 @@ class SessionLifecycle:
 
     def run(self) -> RunResult:
         cfg = self.cfg
-        self._preflight()
-        self._setup_session()
         url = cfg.device.url
-        self._start_recording(url)
+        try:
+            self._preflight()
+            self._setup_session()
+            self._start_recording(url)
+        except SessionRefused:
+            self._teardown()
+            raise
         try:
             url = self._open_link()
             self.recorder.update_meta(device={"url": url, "hello": None})
