@@ -113,8 +113,10 @@ def run_bump_test(cfg, plan, *, tau_cl=None, out_dir=None, write=None, as_json=F
     unit = f" {a.unit}" if a.unit else ""
     start = (f"{a.name} {plan.safe:g} -> {plan.u0:g}{unit} over {plan.ramp_s:.3g} s" if plan.ramp_s
              else f"{a.name} at {plan.u0:g}{unit}")
-    print(f"bump test on {cfg.rig}: {start}, up to {plan.steps} steps of ±{abs(plan.du):g}{unit} around it, "
-          f"each held until settled, at most {plan.duration_s:.3g} s. The rig moves on its own: keep "
+    held = (f"each held {plan.hold_max_s:g} s" if plan.hold_min_s == plan.hold_max_s
+            else "each held until settled")
+    print(f"bump test on {cfg.rig}: {start}, up to {plan.steps} steps of ±{abs(plan.du):g}{unit} "
+          f"around it, {held}, at most {plan.duration_s:.3g} s. The rig moves on its own: keep "
           "the hardwired e-stop within reach (safety.md); Ctrl-C stops at once.", file=sys.stderr)
     engine = Engine(cfg, out_dir=out_dir, duration_s=plan.duration_s, autostart=True, front_end="cli",
                     open_loop=driver)
