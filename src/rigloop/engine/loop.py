@@ -501,11 +501,15 @@ class Engine(SessionLifecycle, FrontEndRequests):
             self._noise_floor_fixed(warnings)
 
     def _noise_floor_fixed(self, warnings: list[str]) -> None:
-        """Record the noise floor in session.yaml and say which rate limits it makes doubtful."""
+        """Keep the noise floor for session.yaml and say which rate limits it makes doubtful.
+
+        Only the recorder's copy of the metadata changes here: rewriting session.yaml means an
+        fsync, which on a busy disk takes longer than many sample periods; the file gets it with
+        the outcome (or with the next rewrite of the metadata)."""
         for text in warnings:
             self._emit(EventRecord("warning", text, t=self.t_last))
         if self.recorder is not None:
-            self.recorder.update_meta(noise_floor=plain(self.supervisor.noise_floor))
+            self.recorder.meta["noise_floor"] = plain(self.supervisor.noise_floor)
 
     def _t_rel_now(self) -> float:
         if self.run_t0 is None or self.t_last is None:
