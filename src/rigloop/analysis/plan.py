@@ -21,14 +21,16 @@ from __future__ import annotations
 import difflib
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
 
 from rigloop.analysis.metrics import SETTLE_BAND, metric_unit
-from rigloop.analysis.segments import rows_metrics, running_starts, segment_metrics
+from rigloop.analysis.runs import Run, session_runs
+from rigloop.analysis.segments import rows_metrics, segment_metrics
 from rigloop.analysis.session import Session
+from rigloop.analysis.transition import TransitionMetrics
 from rigloop.config.problems import MISSING, Problem
 
 
@@ -48,6 +50,8 @@ RUN_CRITERIA = (
     "rms_error", "iae", "ise", "itae", "max_abs_error", "max_abs_u", "u_rms", "u_total_variation",
     "time_at_limits_pct", "latency_ms_p99", "late_ticks", "lost_samples", "rejected_frames",
 )
+#: Said beside every whole-run verdict: the span it was measured over.
+RUN_SPAN_WORDS = " (all the run's running rows, lead-in included, as in the run summary)"
 #: Yes/no criteria of the whole run.
 RUN_FLAGS = ("no_trip", "completed")
 _PLAN_KEYS = ("name", "initial", "lead_s", "blend_s", "settle_band_pct", "segments", "criteria")
@@ -311,13 +315,17 @@ class CriterionResult:
     value: object            # the measured value (float, NaN when not measurable, or bool)
     passed: bool
     message: str
+    run: int | None = None   # the run (ARM … stop) judged; None when the session has one run
 
     def as_dict(self) -> dict:
         value = self.value
         if isinstance(value, float) and not math.isfinite(value):
             value = None
-        return {"segment": self.segment, "name": self.name, "limit": self.limit,
-                "value": value, "passed": self.passed, "message": self.message}
+        out = {"segment": self.segment, "name": self.name, "limit": self.limit,
+               "value": value, "passed": self.passed, "message": self.message}
+        if self.run is not None:
+            out["run"] = self.run
+        return out
 
 
 @dataclass(frozen=True)
@@ -337,26 +345,43 @@ class PlanResult:
 
 
 def evaluate_plan(plan: Mapping, session: Session) -> PlanResult:
-    """Judge a recorded session against a plan's criteria.
+    """Judge a recorded session against a plan's criteria, run by run.
 
-    Segment windows are ``[origin + at, origin + at + blend_s + hold_s)`` in session time, where
-    ``origin`` is the time of the first running row (the plan's reference starts there; see
-    :mod:`rigloop.analysis.segments`).
-    Every segment gets a ``completed`` check (the running data cover its whole window); the
-    criteria of a segment that was not completed fail. Whole-run criteria are measured over the
-    running rows from the end of the lead-in to the end of the plan (the lead-in is where the
-    rig comes up to the initial level; it says nothing about the loop's tracking). A criterion
-    whose metric cannot be measured (NaN, e.g. the output never settled) fails and says why.
+    Every arm replays the plan from its start, so each run (ARM … stop, see
+    :mod:`rigloop.analysis.runs`) is judged on its own, with its first running row as the time
+    origin — the same origin the report's transition table uses. Segment windows are
+    ``[origin + at, origin + at + blend_s + hold_s)`` in session time, on the run's own running
+    rows. Every segment gets a ``completed`` check (the run's running data cover its whole
+    window); the criteria of a segment that was not completed fail. Whole-run criteria are
+    measured over all the run's running rows — the span of the run summary, lead-in included
+    (the engine blends from the measured output into ``initial``, so the lead-in is tracked
+    too). A criterion whose metric cannot be measured (NaN, e.g. the output never settled)
+    fails and says why. The plan passes when every run passes; a session with several runs
+    tags each verdict with its run.
     """
+    runs = session_runs(session)
+    results: list[CriterionResult] = []
+    if not runs:
+        results += _judge_run(plan, session, None, None)
+    for run in runs:
+        results += _judge_run(plan, session, run, run.index if len(runs) > 1 else None)
+    name = str(plan.get("name") or "test plan")
+    return PlanResult(name, all(r.passed for r in results), results)
+
+
+def _judge_run(plan: Mapping, session: Session, run: Run | None, tag: int | None
+               ) -> list[CriterionResult]:
     segments = plan_segments(plan)
     units = session.units
-    starts = running_starts(session)
-    origin = starts[0] if starts else 0.0
     t = session.samples["t"]
-    active = session.active_mask()
-    t_last = float(t[active][-1]) if active.any() else -math.inf
+    rows_of_run = run.running_rows(session) if run is not None else np.zeros(t.size, dtype=bool)
+    origin = run.t_start if run is not None else 0.0
+    t_last = run.t_end if run is not None else -math.inf
     period = float(np.median(np.diff(t))) if t.size >= 2 else 0.0
     results: list[CriterionResult] = []
+
+    def add(result: CriterionResult) -> None:
+        results.append(replace(result, run=tag))
 
     for seg in segments:
         t0, t1 = origin + seg.at, origin + seg.end
@@ -364,52 +389,57 @@ def evaluate_plan(plan: Mapping, session: Session) -> PlanResult:
         msg = (f"running data cover the segment (t = {t0:.3f} … {t1:.3f} s)" if done else
                f"not completed: the running data end at t = {t_last:.3f} s, the segment needs "
                f"t = {t0:.3f} … {t1:.3f} s")
-        results.append(CriterionResult(seg.name, "completed", True, done, done, msg))
+        add(CriterionResult(seg.name, "completed", True, done, done, msg))
         if not seg.criteria:
             continue
         step, tracking = segment_metrics(session, t0, t1, seg.r_from, seg.to,
-                                         settle_band=seg.settle_band)
+                                         settle_band=seg.settle_band, within=rows_of_run)
         values = {**step.as_dict(), **tracking.as_dict()}
         values["abs_steady_state_error"] = abs(values["steady_state_error"])
         for name, limit in seg.criteria.items():
             if not done:
-                results.append(CriterionResult(seg.name, name, dict(limit), math.nan, False,
-                                               f"{name}: not judged, the segment was not completed"))
+                add(CriterionResult(seg.name, name, dict(limit), math.nan, False,
+                                    f"{name}: not judged, the segment was not completed"))
             else:
-                results.append(_judge(seg.name, name, limit, values[name], units, seg.settle_band))
+                add(_judge(seg.name, name, limit, values[name], units, step))
 
     criteria = dict(plan.get("criteria") or {})
     if criteria:
-        t_begin = origin + (segments[0].at if segments else 0.0)
-        t_end = origin + (segments[-1].end if segments else 0.0)
-        rows = active & (t >= t_begin) & (t <= t_end)
-        values = rows_metrics(session, rows).as_dict()
+        values = rows_metrics(session, rows_of_run).as_dict()
         values["lost_samples"] = session.lost_samples
         values["rejected_frames"] = session.rejected_frames_total
         for name, limit in criteria.items():
             if name == "no_trip":
                 if limit:
-                    results.append(_judge_no_trip(session))
+                    add(_judge_no_trip(session, run, tag is None))
             elif name == "completed":
                 if limit:
-                    ok = session.outcome == "completed"
-                    results.append(CriterionResult(None, name, True, ok, ok,
-                                                   f"outcome: {session.outcome}"))
+                    ok, why = _run_completed(session, run, tag is None)
+                    add(CriterionResult(None, name, True, ok, ok, why))
             else:
-                results.append(_judge(None, name, limit, values[name], units))
-    name = str(plan.get("name") or "test plan")
-    return PlanResult(name, all(r.passed for r in results), results)
+                res = _judge(None, name, limit, values[name], units)
+                if name not in ("lost_samples", "rejected_frames"):
+                    res = replace(res, message=res.message + RUN_SPAN_WORDS)
+                add(res)
+    return results
+
+
+def _run_completed(session: Session, run: Run | None, only_run: bool) -> tuple[bool, str]:
+    if only_run or run is None:
+        return session.outcome == "completed", f"outcome: {session.outcome}"
+    ok = "duration reached" in run.ended or run.ended.startswith("completed")
+    return ok, f"run {run.index} ended: {run.ended}"
 
 
 def _judge(segment: str | None, name: str, limit: Mapping, value: float, units: dict,
-           settle_band: float = SETTLE_BAND) -> CriterionResult:
+           step: TransitionMetrics | None = None) -> CriterionResult:
     unit = metric_unit(name, units)
     unit = f" {unit}" if unit else ""
     lo, hi = limit.get("min"), limit.get("max")
     bounds = {k: float(v) for k, v in limit.items() if k in ("min", "max")}
     if not math.isfinite(value):
         return CriterionResult(segment, name, bounds, value, False,
-                               f"{name}: {_why_nan(name, settle_band)}")
+                               f"{name}: {_why_nan(name, step)}")
     shown = f"{name} = {value:.4g}{unit}"
     if lo is not None and value < lo:
         return CriterionResult(segment, name, bounds, value, False,
@@ -426,7 +456,15 @@ def _judge(segment: str | None, name: str, limit: Mapping, value: float, units: 
     return CriterionResult(segment, name, bounds, value, True, f"{shown}, {allowed}")
 
 
-def _judge_no_trip(session: Session) -> CriterionResult:
+def _judge_no_trip(session: Session, run: Run | None = None, only_run: bool = True
+                   ) -> CriterionResult:
+    if not only_run and run is not None:
+        trips = [ev for ev in session.events if ev.kind in ("trip", "estop") and ev.t is not None
+                 and run.t_start <= ev.t < run.t_next]
+        ok = not trips and not run.ended.startswith("the session ended while running")
+        msg = (f"no trip in run {run.index} ({run.ended})" if ok else
+               f"run {run.index}: {trips[0].detail if trips else run.ended}")
+        return CriterionResult(None, "no_trip", True, ok, ok, msg)
     trip = session.meta.get("trip")
     trips = [ev for ev in session.events if ev.kind in ("trip", "estop")]
     if isinstance(trip, Mapping):
@@ -440,9 +478,11 @@ def _judge_no_trip(session: Session) -> CriterionResult:
     return CriterionResult(None, "no_trip", True, ok, ok, msg)
 
 
-def _why_nan(name: str, settle_band: float) -> str:
-    if name == "settling_time_s":
-        return f"did not settle in the ±{100 * settle_band:g} % band before the segment ended"
+def _why_nan(name: str, step: TransitionMetrics | None) -> str:
+    if name == "settling_time_s" and step is not None:
+        if step.band_widened:
+            return f"{step.settled} ({step.band_note})"
+        return f"{step.settled} (band ±{step.band_pct:.3g} % of the change)"
     if name == "rise_time_s":
         return "did not reach 90 % of the change"
     if name in ("lost_samples", "rejected_frames"):
