@@ -12,10 +12,14 @@ import math
 from dataclasses import dataclass, field
 from typing import Any
 
+import numpy as np
+
 from rigloop.analysis.metrics import RunMetrics, metric_unit
 from rigloop.analysis.plan import evaluate_plan, plan_reference_spec, plan_segments, session_plan
+from rigloop.analysis.runs import Run, session_runs
 from rigloop.analysis.segments import ProfileStep, Segment, analyse_segments, rows_metrics
 from rigloop.analysis.session import Session
+from rigloop.analysis.transition import NEVER_LEFT, NOISE_MULTIPLE, NOT_SETTLED
 from rigloop.plain_data import plain
 
 #: Run metrics shown in the text report and compared between sessions: key, label.
@@ -61,6 +65,10 @@ class SessionAnalysis:
     plan: dict | None                  # PlanResult.as_dict() shape
     plan_source: str | None            # "recorded" (session.yaml) or "evaluated" (by the report)
     notes: list[str] = field(default_factory=list)
+    runs: list[Run] = field(default_factory=list)             # the runs reported
+    run_metrics: list[RunMetrics] = field(default_factory=list)  # one per reported run
+    all_runs: int = 0                  # runs in the session (``runs`` may be one of them)
+    band: float | None = None          # --band: the settling band given, fraction of the change
 
     @property
     def units(self) -> dict[str, str]:
@@ -87,6 +95,9 @@ class SessionAnalysis:
         out["lost_samples"] = s.lost_samples
         out["rejected_frames"] = rejected
         out["rejected_frames_total"] = s.rejected_frames_total
+        out["runs_in_session"] = self.all_runs
+        out["runs"] = [{**r.as_dict(), **_plain_run(m)} for r, m in zip(self.runs, self.run_metrics)]
+        out["band_pct"] = None if self.band is None else 100.0 * self.band
         out["trips"] = self.trips
         out["transitions"] = [seg.as_dict() for seg in self.segments]
         out["plan"] = self.plan
@@ -96,9 +107,29 @@ class SessionAnalysis:
         return out
 
 
-def analyse(session: Session) -> SessionAnalysis:
-    """Compute the report's content for one session."""
+def _plain_run(m: RunMetrics) -> dict:
+    out = m.as_dict()
+    out.pop("samples")
+    return out
+
+
+def analyse(session: Session, *, band: float | None = None, run: int | None = None
+            ) -> SessionAnalysis:
+    """Compute the report's content for one session.
+
+    ``band`` (a fraction of the change) replaces every settling band of the transition table
+    (the plan's verdicts keep the plan's bands); ``run`` (1-based) reports that run alone.
+    Raises ``ValueError`` naming the runs there are when ``run`` is not one of them.
+    """
     notes: list[str] = []
+    all_runs = session_runs(session)
+    runs = all_runs
+    if run is not None:
+        if not 1 <= run <= len(all_runs):
+            have = (f"it has {len(all_runs)} run(s), numbered 1 to {len(all_runs)}" if all_runs
+                    else "it has no run (the loop never reached the running state)")
+            raise ValueError(f"--run {run}: no such run in {session.name}; {have}")
+        runs = [all_runs[run - 1]]
     plan = None
     try:
         plan = session_plan(session)
@@ -107,16 +138,26 @@ def analyse(session: Session) -> SessionAnalysis:
     if plan is not None:
         spec = plan_reference_spec(plan)
         steps = [ProfileStep(p.name, p.settle_band) for p in plan_segments(plan)]
-        segments, seg_notes = analyse_segments(session, spec, source="plan", steps=steps)
+        segments, seg_notes = analyse_segments(session, spec, source="plan", steps=steps,
+                                               band=band, runs=runs)
     else:
         spec = session.config.get("reference")
-        segments, seg_notes = analyse_segments(session, spec if isinstance(spec, dict) else None)
+        segments, seg_notes = analyse_segments(session, spec if isinstance(spec, dict) else None,
+                                               band=band, runs=runs)
     notes += seg_notes
 
-    run = rows_metrics(session, session.active_mask())
-    if not run.samples:
+    mask = np.zeros(session.n_rows, dtype=bool)
+    for r in runs:
+        mask |= r.running_rows(session)
+    total = rows_metrics(session, mask if run is not None else session.active_mask())
+    per_run = [rows_metrics(session, r.running_rows(session)) for r in runs]
+    if not total.samples:
         notes.append("no rows were recorded in the running state: no tracking metric or "
                       "transition can be measured")
+    arms = sum(1 for ev in session.events if ev.kind == "armed")
+    if arms > len(all_runs):
+        notes.append(f"armed {arms} times, {len(all_runs)} of them reached the running state "
+                     f"(an arm refused or tripped before the first running sample has no run)")
 
     verdicts, source = None, None
     recorded = session.meta.get("plan")
@@ -124,7 +165,28 @@ def analyse(session: Session) -> SessionAnalysis:
         verdicts, source = recorded, "recorded"
     elif plan is not None:
         verdicts, source = evaluate_plan(plan, session).as_dict(), "evaluated"
-    return SessionAnalysis(session, run, segments, session_trips(session), verdicts, source, notes)
+    if verdicts is not None and run is not None and len(all_runs) > 1:
+        verdicts = _verdicts_of_run(verdicts, run)
+    trips = session_trips(session)
+    if run is not None:
+        r = runs[0]
+        trips = [tr for tr in trips if _in_run(tr.get("t"), r)]
+    return SessionAnalysis(session, total, segments, trips, verdicts, source, notes, runs,
+                           per_run, len(all_runs), band)
+
+
+def _verdicts_of_run(verdicts: dict, run: int) -> dict:
+    criteria = [c for c in verdicts.get("criteria") or [] if c.get("run") in (None, run)]
+    failed = sum(1 for c in criteria if not c.get("passed"))
+    return {**verdicts, "criteria": criteria, "failed": failed, "passed": failed == 0,
+            "run": run}
+
+
+def _in_run(t: object, run: Run) -> bool:
+    try:
+        return run.t_start <= float(t) < run.t_next
+    except (TypeError, ValueError):
+        return False
 
 
 def session_trips(session: Session) -> list[dict]:
@@ -194,21 +256,21 @@ def render_text(analysis: SessionAnalysis) -> str:
         f"  rig      {s.rig}",
         f"  started  {a['started_utc'] or '?'}   ended {a['ended_utc'] or 'not recorded'}",
         f"  outcome  {s.outcome}" + (f" ({a['stop_reason']})" if a["stop_reason"] else ""),
-        f"  samples  {s.n_rows} recorded, {analysis.run.samples} while running "
-        f"({fmt(analysis.run.duration_s)} s)",
+        f"  samples  {s.n_rows} recorded, {_running_words(analysis)}",
         "",
     ]
-    lines += _transition_table(analysis.segments, s.output_name, units["y"])
+    several = analysis.all_runs > 1
+    if several and len(analysis.runs) > 1:
+        lines += _run_table(analysis.runs)
+        lines.append("")
+    lines += _transition_table(analysis.segments, s.output_name, units["y"], several)
     lines.append("")
-    lines.append("Run metrics (running rows only)")
-    width = max(len(label) for _, label in RUN_ROWS)
-    for key, label in RUN_ROWS:
-        lines.append(f"  {label:<{width}}  {_value_with_unit(a.get(key), metric_unit(key, units))}")
+    lines += _metric_table(analysis, a)
     lines.append("")
     lines += _trip_lines(analysis.trips)
     if analysis.plan is not None:
         lines.append("")
-        lines += _plan_lines(analysis.plan, analysis.plan_source)
+        lines += plan_lines(analysis.plan, analysis.plan_source)
     remarks = analysis.notes + s.warnings
     if remarks:
         lines.append("")
@@ -217,26 +279,94 @@ def render_text(analysis: SessionAnalysis) -> str:
     return "\n".join(lines) + "\n"
 
 
-def _transition_table(segments: list[Segment], output: str, unit: str) -> list[str]:
+def _running_words(analysis: SessionAnalysis) -> str:
+    run = analysis.run
+    if analysis.all_runs > 1 and len(analysis.runs) == 1:
+        r = analysis.runs[0]
+        return (f"run {r.index} of {analysis.all_runs}: {run.samples} while running "
+                f"({fmt(run.duration_s)} s, t = {r.t_start:.3f} … {r.t_end:.3f} s)")
+    text = f"{run.samples} while running ({fmt(run.duration_s)} s)"
+    if analysis.all_runs > 1:
+        text += f" in {analysis.all_runs} runs"
+    return text
+
+
+def _run_table(runs: list[Run]) -> list[str]:
+    head = ["#", "start s", "end s", "running s", "samples", "how it ended"]
+    rows = [[str(r.index), f"{r.t_start:.3f}", f"{r.t_end:.3f}", fmt(r.duration_s),
+             str(r.samples), r.ended] for r in runs]
+    return (["Runs (each ARM … stop; times in session time, s)"]
+            + _table(head, rows, text_cols=(5,)))
+
+
+def _metric_table(analysis: SessionAnalysis, a: dict) -> list[str]:
+    units = analysis.units
+    title = ("Run metrics (all running rows, lead-in included; integrals and total variation "
+             "run by run)")
+    if not (analysis.all_runs > 1 and len(analysis.runs) > 1):
+        lines = [title]
+        width = max(len(label) for _, label in RUN_ROWS)
+        for key, label in RUN_ROWS:
+            lines.append(f"  {label:<{width}}  "
+                         f"{_value_with_unit(a.get(key), metric_unit(key, units))}")
+        return lines
+    per = [m.as_dict() for m in analysis.run_metrics]
+    head = ["metric"] + [f"run {r.index}" for r in analysis.runs] + ["all runs"]
+    rows = []
+    for key, label in RUN_ROWS:
+        unit = metric_unit(key, units)
+        rows.append([label + (f" [{unit}]" if unit else "")] + [fmt(m.get(key)) for m in per]
+                    + [fmt(a.get(key))])
+    return [title] + _table(head, rows) + [
+        "  lost samples and rejected frames are counted for the whole session (all runs)"]
+
+
+def _settle_cell(seg: Segment) -> str:
+    status = seg.transition.settled
+    if status == NOT_SETTLED:
+        return "not settled"
+    if status == NEVER_LEFT:
+        return "0 (in band)"
+    return fmt(seg.step.settling_time_s)
+
+
+def _transition_table(segments: list[Segment], output: str, unit: str,
+                      several_runs: bool = False) -> list[str]:
     title = f"Transitions of {output}" + (f" [{unit}]" if unit else "")
     if not segments:
         return [title, "  none (the reference held one level, or no transition was reached)"]
-    bands = {seg.settle_band for seg in segments}
-    head = ["#", "label", "from", "to", "start s"] + [c for _, c in STEP_COLUMNS]
-    if len(bands) > 1:
-        head.append("band %")
+    head = (["#"] + (["run"] if several_runs else []) + ["label", "from", "to", "start s"]
+            + [c for _, c in STEP_COLUMNS] + ["band ±", "noise σ", "smooth s"])
     rows = []
     for seg in segments:
-        row = [str(seg.index), seg.label, fmt(seg.r_from), fmt(seg.r_to), f"{seg.t_start:.3f}"]
-        row += [fmt(getattr(seg.step, key)) for key, _ in STEP_COLUMNS]
-        if len(bands) > 1:
-            row.append(fmt(100.0 * seg.settle_band))
+        tm = seg.transition
+        row = [str(seg.index)] + ([str(seg.run)] if several_runs else [])
+        row += [seg.label, fmt(seg.r_from), fmt(seg.r_to), f"{seg.t_start:.3f}"]
+        row += [fmt(seg.step.rise_time_s), _settle_cell(seg), fmt(seg.step.overshoot_pct),
+                fmt(seg.step.steady_state_error)]
+        row += [fmt(tm.band, 3) + ("*" if tm.band_widened else ""), fmt(tm.noise_std, 3),
+                fmt(tm.smoothing_s, 3)]
         rows.append(row)
-    band = f"±{fmt(100.0 * bands.pop())} %" if len(bands) == 1 else "the band given per row"
-    return [title] + _table(head, rows, text_cols=(1,)) + [
-        "  rise: 10–90 % of the change; ss error: target − mean output over the last 10 % of "
-        "the segment;",
-        f"  settle: from the start of the blend until the output stays within {band} of the change"]
+    stated = sorted({100.0 * seg.settle_band for seg in segments})
+    stated_text = " or ".join(f"±{fmt(b)} %" for b in stated)
+    out = [title] + _table(head, rows, text_cols=(2 if several_runs else 1,))
+    out += [
+        "  rise, settle, overshoot: read on the output smoothed without lag (cubic Savitzky–Golay "
+        "over 'smooth s'; 0 = not",
+        "    smoothed), so that the noise does not set them; noise σ: the output's noise, from its "
+        "second differences;",
+        f"  settle: from the start of the blend until the output stays within the band: "
+        f"{stated_text} of the change, or",
+        f"    {NOISE_MULTIPLE:g}× the noise left after smoothing where that is wider (marked *: "
+        f"the stated band is below the noise);",
+        "  not settled: outside the band at the segment's end, or inside it only for the last "
+        "10 % of the segment;",
+        "  rise: 10–90 % of the change; ss error: target − mean raw output over the last 10 % of "
+        "the segment"]
+    if any(seg.transition.band_widened for seg in segments):
+        out.append("  * band below the noise: " + next(
+            seg.transition.band_note for seg in segments if seg.transition.band_widened))
+    return out
 
 
 def _table(head: list[str], rows: list[list[str]], text_cols: tuple[int, ...] = (0,)) -> list[str]:
@@ -270,20 +400,34 @@ def _trip_lines(trips: list[dict]) -> list[str]:
     return out
 
 
-def _plan_lines(plan: dict, source: str | None) -> list[str]:
+def plan_lines(plan: dict, source: str | None = None) -> list[str]:
+    """The plan's verdicts as sentences (the report's and ``rigloop run``'s wording)."""
     criteria = plan.get("criteria") or []
     failed = [c for c in criteria if not c.get("passed")]
     verdict = "PASSED" if plan.get("passed") else "FAILED"
     origin = " (evaluated by this report)" if source == "evaluated" else ""
-    out = [f"Test plan '{plan.get('name', 'test plan')}': {verdict}{origin} — "
+    of_run = f", run {plan['run']}" if plan.get("run") is not None else ""
+    out = [f"Test plan '{plan.get('name', 'test plan')}'{of_run}: {verdict}{origin} — "
            f"{len(criteria) - len(failed)} of {len(criteria)} criteria met"]
     if plan.get("error"):
         out.append(f"  the plan could not be evaluated: {plan['error']}")
     for c in criteria:
         mark = "pass" if c.get("passed") else "FAIL"
         where = c.get("segment") or "whole run"
-        out.append(f"  [{mark}] {where}: {c.get('message')}")
+        if c.get("run") is not None and plan.get("run") is None:
+            where = f"run {c['run']}, {where}"
+        out.append(f"  [{mark}] {where}: {c.get('message') or _criterion_sentence(c)}")
     return out
+
+
+def _criterion_sentence(c: dict) -> str:
+    """Words for a verdict recorded without a message (older session files)."""
+    limit, value = c.get("limit"), c.get("value")
+    if isinstance(limit, dict):
+        bounds = " and ".join(f"{'at least' if k == 'min' else 'at most'} {fmt(v)}"
+                              for k, v in limit.items())
+        return f"{c.get('name')} = {fmt(value)}, allowed {bounds}"
+    return f"{c.get('name')}: {'yes' if value else 'no'}"
 
 
 # --- comparison ---------------------------------------------------------------------------

@@ -7,9 +7,11 @@ output left the band). :func:`transition_metrics` therefore
 
 1. measures the noise floor σ of the segment (:func:`rigloop.analysis.noise.noise_floor`);
 2. smooths the response with a centred cubic Savitzky–Golay filter, no longer than needed to
-   bring the noise left in it, σ_s, to a quarter of the stated band over ``NOISE_MULTIPLE``
-   (so the band stays as stated), and never longer than half the rise time (read on a first
-   smoothing) nor a fifth of the segment, so that the response's own shape is kept;
+   bring ``NOISE_MULTIPLE·σ_s`` (σ_s the noise left in it) down to a quarter of the stated band
+   (so the band stays as stated) and to half a percent of the change (so noise moves the
+   overshoot by less than about half a percentage point), and never longer than half the rise
+   time (read on a first smoothing) nor a fifth of the segment, so that the response's own
+   shape is kept;
 3. widens the settling band to ``max(stated % of the change, NOISE_MULTIPLE·σ_s)`` — a band
    narrower than the noise left is crossed by the noise alone — and says so;
 4. reads rise, settling, overshoot and peak on the smoothed response with the ``step_info``
@@ -36,8 +38,11 @@ from rigloop.analysis.noise import MIN_WINDOW, noise_floor, smooth, window_for_n
 #: normal sample lies outside ±4σ with probability 6e-5 (common practice for a "clear of noise"
 #: threshold).
 NOISE_MULTIPLE = 4.0
-#: The smoothing aims at NOISE_MULTIPLE·σ_s <= this share of the stated band.
+#: The smoothing aims at NOISE_MULTIPLE·σ_s <= this share of the stated band ...
 SMOOTH_SHARE_OF_BAND = 0.25
+#: ... and <= this fraction of the change, so that the overshoot's noise stays below about
+#: half a percentage point even with a wide band (ours).
+OVERSHOOT_RESOLUTION = 0.005
 #: The smoothing window is at most this fraction of the rise time (keeps peaks; ours).
 RISE_WINDOW_FRACTION = 0.5
 #: ... and at most this fraction of the segment's samples.
@@ -103,7 +108,8 @@ def transition_metrics(t, y, *, t_step: float, y_initial: float, y_final: float,
     sigma = noise_floor(y)
     stated = settle_band * change
     most = max(1, int(SEGMENT_WINDOW_FRACTION * t.size))
-    window = window_for_noise(sigma, SMOOTH_SHARE_OF_BAND * stated / NOISE_MULTIPLE, most)
+    target = min(SMOOTH_SHARE_OF_BAND * stated, OVERSHOOT_RESOLUTION * change) / NOISE_MULTIPLE
+    window = window_for_noise(sigma, target, most)
     if window > 1:
         first = smooth(y, window, sigma)
         rise = step_metrics(t, first.y, t_step=t_step, y_initial=y_initial, y_final=y_final,
