@@ -59,7 +59,7 @@ def session_figure(analyses: list[SessionAnalysis]) -> Figure:
         if span is not None:
             grid[0, col].set_xlim(*span)
         if title:
-            grid[0, col].set_title(title, fontsize=_FONT["label"])
+            grid[0, col].set_title(title, fontsize=_FONT["label"], pad=14)
 
     s0 = analyses[0].session
     if len(analyses) == 2:

@@ -85,6 +85,9 @@ def _how_it_ended(session: Session, t_start: float, t_next: float, last: bool,
         if ev.t is None or not t_start <= ev.t < t_next or ev.kind not in _END_KINDS:
             continue
         if ev.kind == "trip":
+            cause, _, message = (ev.detail or "").partition(": ")
+            if cause == "e-stop":           # the engine records an e-stop as a trip first
+                return f"e-stop: {message}" if message else "e-stop"
             return f"tripped: {ev.detail}" if ev.detail else "tripped"
         if ev.kind == "estop":
             return f"e-stop: {ev.detail}" if ev.detail else "e-stop"
