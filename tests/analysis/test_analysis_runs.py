@@ -11,7 +11,7 @@ import yaml
 
 from rigloop.analysis.plan import evaluate_plan
 from rigloop.analysis.report import analyse, render_text
-from rigloop.analysis.runs import count_arms, session_runs
+from rigloop.analysis.runs import count_arms, listing_words, session_runs
 from rigloop.analysis.session import load_session
 from rigloop.cli import main
 from rigloop.config import load_config
@@ -88,6 +88,8 @@ def test_each_run_is_found_with_how_it_ended(two_runs):
     assert "duration reached" in runs[1].ended
     assert runs[0].t_end < runs[1].t_start
     assert runs[1].duration_s == pytest.approx(RUN_S, abs=0.05)
+    # the desktop app's past-sessions list: outcome and number of runs, from the files alone
+    assert listing_words(two_runs) == f"{session.outcome} · 2 runs"
 
 
 @pytest.mark.slow

@@ -120,3 +120,23 @@ def count_arms(folder: str | Path) -> int | None:
             return n
     except OSError:
         return None
+
+
+def listing_words(folder: str | Path) -> str:
+    """One line for a list of sessions: the outcome from session.yaml and the number of runs
+    (arms) from events.csv, e.g. ``tripped · 2 runs``; reads nothing else."""
+    import yaml
+
+    outcome = "outcome unknown"
+    try:
+        with open(Path(folder) / "session.yaml", encoding="utf-8") as fh:
+            meta = yaml.safe_load(fh)
+        if isinstance(meta, dict) and meta.get("outcome"):
+            outcome = str(meta["outcome"])
+            if outcome == "running":
+                outcome = "ended without a clean stop"
+    except (OSError, yaml.YAMLError, UnicodeDecodeError):
+        outcome = "unreadable session.yaml"
+    arms = count_arms(folder)
+    runs = "runs unknown" if arms is None else f"{arms} run" + ("" if arms == 1 else "s")
+    return f"{outcome} · {runs}"
