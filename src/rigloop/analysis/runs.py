@@ -52,7 +52,15 @@ class Run:
 
 
 def session_runs(session: Session) -> list[Run]:
-    """The runs of a session in time order (a recording without a ``state`` column is one run)."""
+    """The runs of a session in time order (a recording without a ``state`` column is one run).
+    Computed once per loaded session (a session is read-only)."""
+    cached = session.__dict__.get("_runs_cache")
+    if cached is None:
+        cached = session.__dict__["_runs_cache"] = _find_runs(session)
+    return list(cached)
+
+
+def _find_runs(session: Session) -> list[Run]:
     t = session.samples["t"]
     active = session.active_mask()
     if not active.any():
@@ -71,11 +79,17 @@ def session_runs(session: Session) -> list[Run]:
 
 def run_labels(session: Session, runs: list[Run] | None = None) -> np.ndarray:
     """Per row: the number of the run whose running rows hold it, 0 elsewhere."""
+    if runs is None and "_labels_cache" in session.__dict__:
+        return session.__dict__["_labels_cache"]
+    cache = runs is None
     runs = session_runs(session) if runs is None else runs
     label = np.zeros(session.n_rows, dtype=np.int32)
     for run in runs:
         label[run.first_row:run.last_row + 1] = run.index
     label[~session.active_mask()] = 0
+    if cache:
+        label.flags.writeable = False
+        session.__dict__["_labels_cache"] = label
     return label
 
 
