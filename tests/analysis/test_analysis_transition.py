@@ -82,6 +82,9 @@ def test_a_band_below_the_noise_is_widened_and_said():
     m = transition_metrics(t, y, t_step=0.0, y_initial=0.0, y_final=10.0, settle_band=0.02)
     assert m.band_widened and m.band_pct > 2.0
     assert "below the noise" in m.band_note and "2 %" in m.band_note
+    # how far the noise left can move the overshoot, said beside it: 4σ_s in percent of the change
+    assert m.overshoot_noise_pct == pytest.approx(100.0 * 4.0 * m.noise_left / 10.0)
+    assert m.overshoot_noise_pct > 1.0
 
 
 def test_entering_the_band_at_the_very_end_is_not_settled():

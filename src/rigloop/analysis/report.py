@@ -45,6 +45,8 @@ RUN_ROWS = (
     ("lost_samples", "lost samples"),
     ("rejected_frames_total", "rejected frames"),
 )
+#: An overshoot's noise resolution is printed beside it from this many percentage points on.
+OVERSHOOT_NOISE_SHOWN = 1.0
 #: Step metrics per transition: key, column title.
 STEP_COLUMNS = (
     ("rise_time_s", "rise s"),
@@ -342,7 +344,10 @@ def _transition_table(segments: list[Segment], output: str, unit: str,
         tm = seg.transition
         row = [str(seg.index)] + ([str(seg.run)] if several_runs else [])
         row += [seg.label, fmt(seg.r_from), fmt(seg.r_to), f"{seg.t_start:.3f}"]
-        row += [fmt(seg.step.rise_time_s), _settle_cell(seg), fmt(seg.step.overshoot_pct),
+        overshoot = fmt(seg.step.overshoot_pct)
+        if tm.overshoot_noise_pct >= OVERSHOOT_NOISE_SHOWN and overshoot != "n/a":
+            overshoot += f" ±{tm.overshoot_noise_pct:.2g}"
+        row += [fmt(seg.step.rise_time_s), _settle_cell(seg), overshoot,
                 fmt(seg.step.steady_state_error)]
         row += [fmt(tm.band, 3) + ("*" if tm.band_widened else ""), fmt(tm.noise_std, 3),
                 fmt(tm.smoothing_s, 3)]
@@ -363,6 +368,9 @@ def _transition_table(segments: list[Segment], output: str, unit: str,
         "10 % of the segment;",
         "  rise: 10–90 % of the change; ss error: target − mean raw output over the last 10 % of "
         "the segment"]
+    if any(seg.transition.overshoot_noise_pct >= OVERSHOOT_NOISE_SHOWN for seg in segments):
+        out.append(f"  overshoot ±x: the noise left after smoothing ({NOISE_MULTIPLE:g}σ) can move "
+                   f"it by up to x points; an overshoot that small may be noise")
     if any(seg.transition.band_widened for seg in segments):
         out.append("  * band below the noise: " + next(
             seg.transition.band_note for seg in segments if seg.transition.band_widened))

@@ -16,7 +16,10 @@ output left the band). :func:`transition_metrics` therefore
    narrower than the noise left is crossed by the noise alone — and says so;
 4. reads rise, settling, overshoot and peak on the smoothed response with the ``step_info``
    rules, and the steady-state error (a mean, which noise does not bias) on the raw samples;
-5. calls a response settled only when it then stays in the band for at least
+5. states how far the noise left can move the overshoot (``overshoot_noise_pct``,
+   ``NOISE_MULTIPLE·σ_s`` in percent of the change): where the rise time does not allow enough
+   smoothing, an overshoot of that size may be noise;
+6. calls a response settled only when it then stays in the band for at least
    ``SETTLE_CONFIRM_FRACTION`` of the segment, so that a settling time is never really the
    segment's length.
 
@@ -70,6 +73,8 @@ class TransitionMetrics:
     smoothing_samples: int     # Savitzky–Golay window, samples (1 = not smoothed)
     smoothing_s: float         # the same in seconds
     settled: str               # SETTLED, NEVER_LEFT, NOT_SETTLED or NOT_MEASURED
+    overshoot_noise_pct: float = math.nan   # NOISE_MULTIPLE·noise_left, percent of the change:
+    #                                         how far the noise alone can move the overshoot
 
     def as_dict(self) -> dict:
         out = self.step.as_dict()
@@ -88,7 +93,7 @@ class TransitionMetrics:
 def not_measured(settle_band: float = SETTLE_BAND) -> TransitionMetrics:
     nan = math.nan
     return TransitionMetrics(StepMetrics(*(nan,) * 6), 100.0 * settle_band, nan, nan, False, nan,
-                             nan, 1, 0.0, NOT_MEASURED)
+                             nan, 1, 0.0, NOT_MEASURED, nan)
 
 
 def transition_metrics(t, y, *, t_step: float, y_initial: float, y_final: float,
@@ -136,4 +141,5 @@ def transition_metrics(t, y, *, t_step: float, y_initial: float, y_final: float,
                        core.peak_time_s, raw.steady_state_error)
     return TransitionMetrics(step, 100.0 * settle_band, band, 100.0 * band / change,
                              band > stated * (1.0 + 1e-12), sigma, sm.noise_left, sm.window,
-                             sm.window * ts if sm.window > 1 else 0.0, status)
+                             sm.window * ts if sm.window > 1 else 0.0, status,
+                             100.0 * NOISE_MULTIPLE * sm.noise_left / change)
