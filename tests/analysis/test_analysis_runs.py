@@ -10,7 +10,8 @@ import pytest
 import yaml
 
 from rigloop.analysis.plan import evaluate_plan
-from rigloop.analysis.report import analyse, render_text
+from rigloop.analysis.report import analyse
+from rigloop.analysis.report_text import render_text
 from rigloop.analysis.runs import count_arms, listing_words, session_runs
 from rigloop.analysis.session import load_session
 from rigloop.cli import main

@@ -10,7 +10,8 @@ import numpy as np
 import pytest
 
 from rigloop.analysis.noise import centre_gain, noise_floor
-from rigloop.analysis.report import analyse, render_text
+from rigloop.analysis.report import analyse
+from rigloop.analysis.report_text import render_text
 from rigloop.analysis.session import load_session
 from rigloop.analysis.transition import NOT_SETTLED, transition_metrics
 from rigloop.cli import main

@@ -34,9 +34,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from rigloop.analysis.report import (
-        analyse, comparison_dict, render_comparison, render_text, to_json,
-    )
+    from rigloop.analysis.report import analyse, comparison_dict, to_json
+    from rigloop.analysis.report_text import render_comparison, render_text
     from rigloop.analysis.session import SessionError, load_session
 
     for target in (args.png, args.svg):

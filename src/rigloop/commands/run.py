@@ -91,7 +91,7 @@ def print_summary(result, stream) -> None:
     w(f"loop timing: latency p50 {_g(lat.get('p50'))} ms, p99 {_g(lat.get('p99'))} ms; "
       f"compute p50 {_g(comp.get('p50'))} us, p99 {_g(comp.get('p99'))} us\n")
     if result.plan is not None:
-        from rigloop.analysis.report import plan_lines
+        from rigloop.analysis.report_text import plan_lines
 
         for line in plan_lines(result.plan):
             w(line + "\n")
