@@ -109,7 +109,7 @@ def transition_metrics(t, y, *, t_step: float, y_initial: float, y_final: float,
     t, y = t[keep], y[keep]
     if not change > 0.0 or t.size == 0:
         return not_measured(settle_band)
-    ts = float(np.median(np.diff(t)))
+    ts = float(np.median(np.diff(t))) if t.size >= 2 else 0.0
     sigma = noise_floor(y)
     stated = settle_band * change
     most = max(1, int(SEGMENT_WINDOW_FRACTION * t.size))
