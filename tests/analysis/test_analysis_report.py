@@ -214,3 +214,15 @@ def test_band_option_sets_the_stated_band_and_is_checked(make_session, capsys):
     for bad in ("0", "100", "-3"):
         code, _, err = run_report(capsys, folder, "--band", bad)
         assert code == 2 and f"--band {float(bad):g}" in err and "percentage" in err
+
+
+def test_text_says_band_below_the_noise_and_not_settled_in_words(make_session, capsys):
+    # noise of 60 output units on changes of several hundred: the 2 % band is below the noise
+    code, out, _ = run_report(capsys, make_session(noise=60.0))
+    assert code == 0
+    assert "* band below the noise: the stated band is narrower than 4× the noise" in out
+    assert "Savitzky–Golay" in out
+    slow = make_session("slow", zeta=1.0, omega=0.3)      # far too slow to settle in a segment
+    code, out, _ = run_report(capsys, slow)
+    table = out.split("Transitions of")[1].split("rise, settle")[0]
+    assert "not settled" in table

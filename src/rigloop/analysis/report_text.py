@@ -142,9 +142,12 @@ def _transition_table(segments: list[Segment], output: str, unit: str,
     if any(seg.transition.overshoot_noise_pct >= OVERSHOOT_NOISE_SHOWN for seg in segments):
         out.append(f"  overshoot ±x: the noise left after smoothing ({NOISE_MULTIPLE:g}σ) can move "
                    f"it by up to x points; an overshoot that small may be noise")
-    if any(seg.transition.band_widened for seg in segments):
-        out.append("  * band below the noise: " + next(
-            seg.transition.band_note for seg in segments if seg.transition.band_widened))
+    widened = [seg for seg in segments if seg.transition.band_widened]
+    if widened:
+        rows = ", ".join(f"row {seg.index}: ±{seg.transition.band_pct:.3g} %" for seg in widened)
+        out.append(f"  * band below the noise: the stated band is narrower than "
+                   f"{NOISE_MULTIPLE:g}× the noise left after smoothing and was widened to it "
+                   f"({rows} of the change)")
     return out
 
 
