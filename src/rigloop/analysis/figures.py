@@ -58,6 +58,7 @@ def session_figure(analyses: list[SessionAnalysis]) -> Figure:
         _draw_column(list(grid[:, col]), analyses, tags, first_column=col == 0)
         if span is not None:
             grid[0, col].set_xlim(*span)
+            _hide_marks_outside(grid[:, col])
         if title:
             grid[0, col].set_title(title, fontsize=_FONT["label"], pad=14)
 
@@ -91,6 +92,15 @@ def _column_spans(analyses: list[SessionAnalysis]) -> list[tuple[tuple[float, fl
     return out
 
 
+def _hide_marks_outside(axes) -> None:
+    """Transition and trip labels placed at a time outside this column's span are not drawn."""
+    for ax in axes:
+        for text in ax.texts:
+            coords = getattr(text, "xycoords", None)
+            if isinstance(coords, tuple) and coords[0] == "data":
+                text.set_annotation_clip(True)
+
+
 def _draw_column(axes, analyses: list[SessionAnalysis], tags: list[str], *,
                  first_column: bool) -> None:
     ax_y, ax_u, ax_f, ax_e = axes
@@ -117,11 +127,10 @@ def _draw_column(axes, analyses: list[SessionAnalysis], tags: list[str], *,
     for level, name in ((act["min"], "min"), (act["max"], "max")):
         if math.isfinite(level):
             ax_u.axhline(level, color="dimgray", ls="--", lw=0.9)
-            if first_column:
-                ax_u.annotate(f"actuator {name} {fmt(level)}", xy=(1.0, level),
-                              xycoords=("axes fraction", "data"),
-                              xytext=(-4, 3 if name == "min" else -10), textcoords="offset points",
-                              ha="right", fontsize=_FONT["marker"], color="dimgray")
+            ax_u.annotate(f"actuator {name} {fmt(level)}", xy=(1.0, level),
+                          xycoords=("axes fraction", "data"),
+                          xytext=(-4, 3 if name == "min" else -10), textcoords="offset points",
+                          ha="right", fontsize=_FONT["marker"], color="dimgray")
     ax_e.axhline(0.0, color="black", lw=0.6)
 
     if first_column:
@@ -216,7 +225,7 @@ def _mark_transitions(axes, an: SessionAnalysis, tag: str, row: int) -> None:
         axes[0].annotate(f"{tag}T{seg.index}", xy=(seg.t_start, 1.0),
                          xycoords=("data", "axes fraction"), xytext=(0, 2 + 10 * row),
                          textcoords="offset points", fontsize=_FONT["marker"], color="0.3",
-                         ha="center", va="bottom", annotation_clip=True)
+                         ha="center", va="bottom")
 
 
 def _mark_trips(axes, an: SessionAnalysis, tag: str) -> None:
@@ -232,4 +241,4 @@ def _mark_trips(axes, an: SessionAnalysis, tag: str) -> None:
         axes[0].annotate(f"{tag}trip: {trip.get('cause') or 'trip'}", xy=(t, 0.0),
                          xycoords=("data", "axes fraction"), xytext=(3, 4),
                          textcoords="offset points", fontsize=_FONT["marker"], color="tab:red",
-                         rotation=90, va="bottom", annotation_clip=True)
+                         rotation=90, va="bottom")
