@@ -24,11 +24,11 @@ from rigloop.analysis.session import ACTIVE_STATE
 
 #: Above this many samples a trace is drawn as its per-bucket min/max envelope.
 MAX_PLOT_POINTS = 20_000
+#: At most this many runs get a column of panels each (the page stays readable).
+MAX_RUN_COLUMNS = 6
 _FONT = {"label": 10, "tick": 9, "title": 12, "caption": 9, "marker": 8}
 _CAPTION_CHARS = 120   # fits the page width at the caption's font size
 _STYLE = ({"color": "tab:blue", "ls": "-"}, {"color": "tab:orange", "ls": "-"})
-#: At most this many runs get a column of panels each (the page stays readable).
-MAX_RUN_COLUMNS = 6
 
 
 def session_figure(analyses: list[SessionAnalysis]) -> Figure:
