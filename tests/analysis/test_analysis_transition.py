@@ -127,3 +127,14 @@ def test_demo_fan_with_noise_reports_what_its_noise_free_twin_reports(tmp_path, 
         assert abs(a.step.overshoot_pct - b.step.overshoot_pct) <= 1.0, (a.index,)
     text = render_text(reports[1])
     assert "Savitzky–Golay" in text and "noise σ" in text
+
+
+def test_smoothing_does_not_amplify_the_noise_at_the_segment_ends():
+    # Over 400 realisations of white noise (numpy's generator), the smoothed end sample keeps its
+    # noise within twice the interior's sqrt(h0) (a cubic fitted to the last window would pass
+    # several times that and make a "peak" of the noise alone at the segment's end).
+    from rigloop.analysis.noise import smooth
+
+    rng = np.random.default_rng(11)
+    ends = np.array([smooth(rng.standard_normal(600), 51, 1.0).y[[0, -1]] for _ in range(400)])
+    assert ends.std(axis=0).max() < 2.0 * centre_gain(51)

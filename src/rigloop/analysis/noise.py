@@ -88,12 +88,16 @@ class Smoothed(NamedTuple):
 
 
 def smooth(y: np.ndarray, window: int, sigma: float) -> Smoothed:
-    """Cubic Savitzky–Golay smoothing of the finite, evenly spaced samples ``y`` (edges fitted by
-    the window's polynomial, so the ends are not padded)."""
+    """Cubic Savitzky–Golay smoothing of the finite, evenly spaced samples ``y``.
+
+    At the ends the data are mirrored about the end sample: a step segment starts and ends on a
+    level, which a mirror image continues naturally, whereas a cubic fitted to the last window
+    extrapolates to the end sample and passes several times the noise there — enough to make
+    a peak of the noise alone at the segment's last sample."""
     y = np.asarray(y, dtype=float)
     if window < MIN_WINDOW or y.size < window:
         return Smoothed(y, 1, sigma)
     from scipy.signal import savgol_filter
 
-    return Smoothed(savgol_filter(y, window, SMOOTH_POLYORDER, mode="interp"), window,
+    return Smoothed(savgol_filter(y, window, SMOOTH_POLYORDER, mode="mirror"), window,
                     sigma * centre_gain(window))
