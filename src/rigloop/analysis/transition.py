@@ -24,7 +24,7 @@ output left the band). :func:`transition_metrics` therefore
    segment's length.
 
 Without noise (σ = 0, or a noise already well inside the band) nothing is smoothed and the
-numbers are exactly those of ``step_metrics``.
+numbers are those of ``step_metrics`` (but for rule 6).
 """
 
 from __future__ import annotations
