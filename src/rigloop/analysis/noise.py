@@ -32,6 +32,10 @@ import numpy as np
 SMOOTH_POLYORDER = 3
 #: Shortest window that smooths at all (the cubic needs at least 5 points to leave noise out).
 MIN_WINDOW = 5
+#: Longest window: the filter costs one multiply-add per sample and window point, so this bounds
+#: a report's time on hour-long recordings (about 0.5 s per million samples); a noise that would
+#: need more smoothing widens the settling band instead (rigloop.analysis.transition).
+MAX_WINDOW = 501
 #: MAD -> standard deviation for normal data (common practice).
 MAD_TO_STD = 1.4826
 #: Mean absolute deviation -> standard deviation for normal data, √(π/2) (common practice).
@@ -63,10 +67,11 @@ def centre_gain(window: int) -> float:
 
 
 def window_for_noise(sigma: float, target: float, most: int) -> int:
-    """The shortest odd window (at most ``most``) whose remaining noise ``σ·√h0`` is at most
-    ``target``; 1 (no smoothing) when the raw noise already is."""
+    """The shortest odd window (at most ``most`` and ``MAX_WINDOW``) whose remaining noise
+    ``σ·√h0`` is at most ``target``; 1 (no smoothing) when the raw noise already is."""
     if not sigma > 0.0 or sigma <= target:
         return 1
+    most = min(most, MAX_WINDOW)
     most = most if most % 2 else most - 1
     if most < MIN_WINDOW:
         return 1
