@@ -379,6 +379,11 @@ SCHEMA: tuple[Key, ...] = (
                                                    "127.0.0.1 for a local device, else 0.0.0.0"),
         "local address to bind; must be able to reach the device"),
     Key("device.udp.local_port", Integer(ge=0, le=65535), 0, "local UDP port, 0 = any free port"),
+    Key("device.auth", Section(), {}, "authenticated frames (docs/protocol.md §14)"),
+    Key("device.auth.key_file", Text(), None,
+        "file holding the rig's pre-shared key in hex (16..64 bytes), readable by its owner only "
+        "(chmod 600); every frame then carries a tag; null = unauthenticated (loopback only)",
+        nullable=True),
     Key("device.serial", Section(), {}, "serial settings (link: serial)"),
     Key("device.serial.port", Text(), "/dev/ttyACM0",
         "serial port name (/dev/ttyACM0, COM3) or pyserial URL"),

@@ -483,6 +483,8 @@ def _json_value(value: Any) -> Any:
         return str(value)       # strict JSON has no NaN/inf
     if isinstance(value, tuple):
         return [_json_value(v) for v in value]
+    if isinstance(value, bytes):
+        return value.hex()
     return value
 
 
