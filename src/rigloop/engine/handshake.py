@@ -23,8 +23,11 @@ class AuthRefused(EngineError):
     """The two ends do not agree on authentication (key missing, wrong key, device unkeyed)."""
 
 
-def _auth_problem(link) -> str | None:
-    """Why the HELLOs seen so far cannot start a session, in plain words, or None."""
+def _auth_problem(link, plain_query_sent: bool = True) -> str | None:
+    """Why the HELLOs seen so far cannot start a session, in plain words, or None.
+
+    A plain 1.0 HELLO counts only once the host has asked in the 1.0 way too: before that it may
+    be a keyed device's start-up HELLO, sent before its firmware set the key."""
     auth = getattr(link, "auth", None)
     if auth is None:
         return None
@@ -34,7 +37,7 @@ def _auth_problem(link) -> str | None:
     if auth.keyed and auth.bad_hello is not None:
         return (f"the device at {link.url} answered with a HELLO whose tag does not match this host's "
                 "key: the key in device.auth.key_file is wrong for this device (or someone else answered)")
-    if auth.keyed and auth.plain_hello_seen:
+    if auth.keyed and (auth.plain_hello_seen or (plain_query_sent and auth.legacy_hello_seen)):
         return (f"the device at {link.url} does not authenticate its frames but this host has a key: "
                 "give the device the same key, or remove device.auth.key_file to run unauthenticated "
                 "(only on a link that stays on this machine)")
@@ -49,10 +52,13 @@ def _await_hello(link) -> Hello:
     next_query = 0.0
     while True:
         now = time.monotonic()
-        problem = _auth_problem(link)
+        problem = _auth_problem(link, plain_query_sent=now - start >= PLAIN_QUERY_AFTER_S + 0.5)
         if problem:
             raise AuthRefused(problem)
         if now > deadline:
+            problem = _auth_problem(link)
+            if problem:
+                raise AuthRefused(problem)
             raise EngineError(f"no HELLO from the device at {link.url} within {HANDSHAKE_TIMEOUT_S:.0f} s; "
                               "check the cable/port, the device's power and its firmware")
         if now >= next_query:

@@ -102,12 +102,14 @@ class HostAuth:
 
     Without a key it passes plain frames and rejects tagged ones; it still notes a tagged HELLO
     (``keyed_hello_seen``) so the handshake can say that the device wants a key. With a key, a
-    plain HELLO (``plain_hello_seen``) or a HELLO whose tag fails (``bad_hello``) are noted the
-    same way; the session starts with the first HELLO that opens.
+    plain 1.1 HELLO (``plain_hello_seen``: an unkeyed device answering our QUERY), a plain 1.0
+    HELLO (``legacy_hello_seen``: a 1.0 device, or a keyed device's start-up HELLO sent before its
+    key was set) or a HELLO whose tag fails (``bad_hello``) are noted the same way; the session
+    starts with the first HELLO that opens.
     """
 
     __slots__ = ("key", "host_nonce", "device_nonce", "_mac", "tx_counter", "rx_counter",
-                 "keyed_hello_seen", "plain_hello_seen", "bad_hello")
+                 "keyed_hello_seen", "plain_hello_seen", "legacy_hello_seen", "bad_hello")
 
     def __init__(self, key: bytes | None = None):
         self.key = key
@@ -130,6 +132,7 @@ class HostAuth:
         self.rx_counter = 0
         self.keyed_hello_seen = False
         self.plain_hello_seen = False
+        self.legacy_hello_seen = False
         self.bad_hello: str | None = None
 
     def seal(self, payload: bytes) -> bytes:
@@ -144,7 +147,10 @@ class HostAuth:
         if not tagged:
             if self.key is not None and len(payload) >= 2 and payload[0] == PROTOCOL_VERSION:
                 if payload[1] == _HELLO:
-                    self.plain_hello_seen = True
+                    if len(payload) == HELLO_NONCE_OFFSET + NONCE_SIZE:
+                        self.plain_hello_seen = True
+                    else:
+                        self.legacy_hello_seen = True
                 raise ProtocolError("auth", "frame without a tag on an authenticated link",
                                     payload[1] if payload[1] in _KNOWN_TYPES else None)
             return payload
