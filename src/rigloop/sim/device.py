@@ -344,9 +344,9 @@ class SimDevice:
             return self._on_configure(msg, now_us)
         if kind is Query:
             return self._on_query(msg, now_us)
-        # HELLO / SAMPLE / FAULT travel the other way: a host never sends them.
+        # HELLO / SAMPLE / FAULT travel the other way (protocol 1.1 §3: rejected under `type`).
         self.ignored["device_message"] += 1
-        self._observe(now_us, msg, "ignored", note="device-to-host message")
+        self._reject("type", now_us, "a device-to-host message sent to the device", msg)
         return []
 
     def _on_query(self, msg: Query, now_us: int) -> list[Message]:

@@ -105,10 +105,11 @@ class UdpTransport:
                 device.note_foreign(now_us)     # never acted on, never changes the reply address
                 continue
             accepted = device.rejects.accepted
+            rejected = device.rejects.total_rejected
             binds = device.bind_count
             out += device.feed_datagram(data, now_us)
-            if device.rejects.accepted != accepted:
-                self.peer = addr
+            if device.rejects.accepted != accepted and device.rejects.total_rejected == rejected:
+                self.peer = addr        # a frame rejected for any reason never moves the reply address
             if device.bind_count != binds:
                 self.bound_to = addr
 
