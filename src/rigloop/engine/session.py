@@ -203,6 +203,7 @@ class SessionLifecycle:
             "samples": self.n_samples,
             "lost_samples": c.lost_samples if c else 0,
             "rejected": c.rejected.as_dict() if c else {},
+            "foreign_frames": c.foreign if c else 0,
             "latency_ms": self.lat_hist.summary(1e3),
             "lateness_ms": self.lateness_hist.summary(1e3),
             "compute_us": self.comp_hist.summary(1e6, 1),
