@@ -128,7 +128,8 @@ void rl_device_rx_bytes(rl_device *d, const uint8_t *data, size_t len);
 /*
  * Datagram transport: handle one received frame (payload + CRC, no COBS). Returns
  * RL_REJECT_NONE if the frame was valid, else the reason it was rejected (already counted).
- * A valid frame tells a datagram port which peer address to answer.
+ * A valid frame tells a datagram port which peer address to answer. While rl_device_bound is
+ * nonzero, pass on only frames from the host of the binding CONFIGURE (protocol 1.1, section 6.7).
  */
 RL_MUST_CHECK rl_reject rl_device_rx_frame(rl_device *d, const uint8_t *frame, size_t len);
 
