@@ -66,9 +66,9 @@ from rigloop.protocol.messages import (
     configure_problem,
 )
 from rigloop.protocol.auth import TRAILER_SIZE, DeviceAuth
-from rigloop.protocol.framing import encode_frame
 from rigloop.protocol.messages import AUTH_NONE
 from rigloop.protocol.sequence import MAX_JUMP, is_newer
+from rigloop.sim.binding import RELEASE_US, HostBinding  # noqa: F401 - RELEASE_US is public here
 from rigloop.sim.faults import FaultInjector
 
 #: Firmware version the simulated device reports in HELLO (major*256 + minor).
@@ -78,8 +78,6 @@ MIN_PERIOD_US = 50
 MAX_PERIOD_US = 10_000_000
 #: Command watchdog in force before the first CONFIGURE (the "compiled-in" default).
 DEFAULT_WATCHDOG_US = 100_000
-#: Protocol 1.1 §6.7: a disarmed device whose host has been silent this long is free again.
-RELEASE_US = 1_000_000
 
 #: CONFIGURE body (docs/protocol.md §4.7): period_us, watchdog_us, safe, u_min, u_max.
 _CONFIGURE_FIELDS = struct.Struct("<IIfff")
@@ -115,7 +113,7 @@ class Truth:
     static_gain: float    # dy_ss/du at the equilibrium for u (Plant.static_gain)
 
 
-class SimDevice:
+class SimDevice(HostBinding):
     """A device speaking protocol version 1 in front of a plant model.
 
     ``plant`` follows :class:`rigloop.plants.base.Plant`; ``sensor`` maps true channel values
@@ -231,28 +229,6 @@ class SimDevice:
                      auth.auth_mode if auth is not None else AUTH_NONE,
                      auth.device_nonce if auth is not None else bytes(8))
 
-    def encode(self, msg: Message) -> bytes | None:
-        """The frame for ``msg`` (sealed on a keyed device); None while a keyed device has no
-        session yet (nothing leaves it without a tag)."""
-        auth = self.auth
-        if auth is not None and not auth.ready:
-            return None
-        return encode_frame(msg, auth=auth)
-
-    # ------------------------------------------------------------------ binding (§6.7)
-    def is_bound(self, now_us: int) -> bool:
-        """True while a host holds the device; releases it when due (disarmed, host silent)."""
-        if self.bound and not self.armed and now_us - self._bound_rx_us > RELEASE_US:
-            self.bound = False
-            self.releases += 1
-            self._observe(now_us, None, "released", note=f"host silent for more than {RELEASE_US} us")
-        return self.bound
-
-    def note_foreign(self, now_us: int) -> None:
-        """A frame from someone other than the bound host: counted, never acted on."""
-        self.foreign += 1
-        self._observe(now_us, None, "ignored", note="foreign sender while bound")
-
     def truth(self, channel: str | None = None, order: int = 1) -> Truth:
         """True alpha and static gain of the plant at the present state and output."""
         channel = channel or self.channels[0].name
@@ -348,21 +324,6 @@ class SimDevice:
         self.ignored["device_message"] += 1
         self._reject("type", now_us, "a device-to-host message sent to the device", msg)
         return []
-
-    def _on_query(self, msg: Query, now_us: int) -> list[Message]:
-        auth = self.auth
-        if auth is not None:
-            if msg.nonce is None:
-                self._reject("auth", now_us, "keyed device: a QUERY must carry the host's nonce", msg)
-                return []
-            if msg.nonce != auth.host_nonce:
-                if self.bound:
-                    self._reject("auth", now_us, "a host holds this device: no new session until it is released", msg)
-                    return []
-                auth.start_session(msg.nonce)
-        self._hello_ext = msg.nonce is not None
-        self._observe(now_us, msg, "accepted")
-        return [self.hello()]
 
     def _on_command(self, msg: Command, now_us: int) -> list[Message]:
         if not math.isfinite(msg.value):
