@@ -44,9 +44,11 @@ from typing import Any, Callable, Mapping, Sequence
 
 import numpy as np
 
+from rigloop.protocol.auth import TRAILER_SIZE, DeviceAuth
 from rigloop.protocol.cobs import CobsError, cobs_decode
 from rigloop.protocol.framing import MAX_SERIAL_RUN, RejectCounters, decode_frame
 from rigloop.protocol.messages import (
+    AUTH_NONE,
     MAX_CHANNELS,
     NAME_SIZE,
     PROTOCOL_VERSION,
@@ -65,8 +67,6 @@ from rigloop.protocol.messages import (
     Stop,
     configure_problem,
 )
-from rigloop.protocol.auth import TRAILER_SIZE, DeviceAuth
-from rigloop.protocol.messages import AUTH_NONE
 from rigloop.protocol.sequence import MAX_JUMP, is_newer
 from rigloop.sim.binding import RELEASE_US, HostBinding  # noqa: F401 - RELEASE_US is public here
 from rigloop.sim.faults import FaultInjector
