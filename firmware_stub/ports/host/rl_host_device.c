@@ -27,12 +27,12 @@
 #include <string.h>
 #include <sys/select.h>
 #include <sys/socket.h>
-#include <sys/stat.h>
 #include <termios.h>
 #include <time.h>
 #include <unistd.h>
 
 #include "rl_device.h"
+#include "rl_host_key.h"
 #include "rl_host_plant.h"
 
 #define HOST_FW_VERSION 0x0100u /* 1.0 */
@@ -355,85 +355,6 @@ static int parse_options(int argc, char **argv, options *o)
     return 1;
 }
 
-/* ---- key and nonces ------------------------------------------------------------------------ */
-
-static int hex_value(int c)
-{
-    if (c >= '0' && c <= '9') {
-        return c - '0';
-    }
-    if (c >= 'a' && c <= 'f') {
-        return c - 'a' + 10;
-    }
-    if (c >= 'A' && c <= 'F') {
-        return c - 'A' + 10;
-    }
-    return -1;
-}
-
-/* Read a hex key (whitespace ignored) from a file that only its owner may read. */
-static int load_key(const char *path, uint8_t *key, size_t *key_len)
-{
-    struct stat st;
-    FILE *f;
-    int c, high = -1;
-    size_t n = 0;
-    if (stat(path, &st) != 0) {
-        fprintf(stderr, "rl_host_device: --key-file %s: %s\n", path, strerror(errno));
-        return 0;
-    }
-    if ((st.st_mode & (S_IRWXG | S_IRWXO)) != 0) {
-        fprintf(stderr,
-                "rl_host_device: --key-file %s: group or others may read it (mode %03o); make it "
-                "private with `chmod 600 %s`\n",
-                path, (unsigned)(st.st_mode & 0777u), path);
-        return 0;
-    }
-    f = fopen(path, "r");
-    if (f == NULL) {
-        fprintf(stderr, "rl_host_device: --key-file %s: %s\n", path, strerror(errno));
-        return 0;
-    }
-    while ((c = fgetc(f)) != EOF) {
-        const int v = hex_value(c);
-        if (c == ' ' || c == '\n' || c == '\r' || c == '\t') {
-            continue;
-        }
-        if (v < 0 || n >= RL_AUTH_KEY_MAX) {
-            fclose(f);
-            fprintf(stderr, "rl_host_device: --key-file %s: expected %u..%u bytes as hex digits "
-                            "(0-9, a-f) only\n",
-                    path, RL_AUTH_KEY_MIN, RL_AUTH_KEY_MAX);
-            return 0;
-        }
-        if (high < 0) {
-            high = v;
-        } else {
-            key[n++] = (uint8_t)((high << 4) | v);
-            high = -1;
-        }
-    }
-    fclose(f);
-    if (high >= 0 || n < RL_AUTH_KEY_MIN) {
-        fprintf(stderr, "rl_host_device: --key-file %s: expected %u..%u bytes as hex digits "
-                        "(an even number of digits)\n",
-                path, RL_AUTH_KEY_MIN, RL_AUTH_KEY_MAX);
-        return 0;
-    }
-    *key_len = n;
-    return 1;
-}
-
-/* Device nonces from the kernel's random source: they must never repeat. */
-static void urandom_nonce(void *ctx, uint8_t out[RL_NONCE_LEN])
-{
-    FILE *f = (FILE *)ctx;
-    if (fread(out, 1, RL_NONCE_LEN, f) != RL_NONCE_LEN) {
-        fprintf(stderr, "rl_host_device: cannot read /dev/urandom; stopping\n");
-        exit(1);
-    }
-}
-
 static int same_address(const struct sockaddr_storage *a, socklen_t a_len,
                         const struct sockaddr_storage *b, socklen_t b_len)
 {
@@ -618,7 +539,7 @@ int main(int argc, char **argv)
         return 2;
     }
     if (opt.key_file != NULL) {
-        if (!load_key(opt.key_file, key, &key_len)) {
+        if (!rl_host_load_key(opt.key_file, key, &key_len)) {
             return 2;
         }
         urandom = fopen("/dev/urandom", "rb");
@@ -685,7 +606,7 @@ int main(int argc, char **argv)
         return 2;
     }
     if (urandom != NULL) {
-        if (rl_device_set_key(&dev, key, key_len, urandom_nonce, urandom) != 0) {
+        if (rl_device_set_key(&dev, key, key_len, rl_host_urandom_nonce, urandom) != 0) {
             fprintf(stderr, "rl_host_device: key refused\n");
             return 2;
         }
