@@ -361,3 +361,16 @@ def test_sim_refuses_a_key_file_others_can_read(tmp_path, keys):
     res = subprocess.run([sys.executable, "-m", "rigloop", "sim", "--udp", "127.0.0.1:0", "--key-file", str(keys[0])],
                          capture_output=True, text=True, env=ENV, timeout=60)
     assert res.returncode == 2 and f"chmod 600 {keys[0]}" in res.stderr and "Traceback" not in res.stderr
+
+
+@pytest.mark.slow
+def test_the_demo_runs_keyed_with_the_simulated_device_started_by_the_engine(tmp_path, keys):
+    # link: sim — the engine starts `rigloop sim --key-file` with the config's key itself
+    res = subprocess.run([sys.executable, "-m", "rigloop", "demo", "--headless", "--duration", "1",
+                          "--set", f"device.auth.key_file={keys[0]}", "--set", "device.sim.clock=lockstep",
+                          "--set", f"recording.dir={tmp_path / 's'}"],
+                         capture_output=True, text=True, env=ENV, timeout=240)
+    assert res.returncode == 0, res.stdout + res.stderr
+    assert "authenticated" in res.stdout
+    meta = yaml.safe_load((next((tmp_path / "s").iterdir()) / "session.yaml").read_text())
+    assert meta["summary"]["authenticated"] is True and meta["summary"]["rejected_frames"]["auth"] == 0
