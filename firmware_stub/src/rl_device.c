@@ -300,9 +300,6 @@ static rl_reject handle_frame(rl_device *d, const uint8_t *frame, size_t len)
         }
         return r;
     }
-    if (d->bound != 0u) {
-        d->bound_rx_us = now_us(d);
-    }
     switch (m.type) {
     case RL_MSG_QUERY:
         r = on_query(d, &m);
@@ -325,6 +322,9 @@ static rl_reject handle_frame(rl_device *d, const uint8_t *frame, size_t len)
     }
     if (r == RL_REJECT_NONE) {
         d->counters.frames_accepted++;
+        if (d->bound != 0u) {
+            d->bound_rx_us = now_us(d); /* only frames acted on keep the binding (section 6.7) */
+        }
     }
     return r;
 }

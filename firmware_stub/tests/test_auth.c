@@ -304,6 +304,25 @@ static void binding_holds_until_disarmed_and_silent(void)
     CHECK_EQ_U(rl_device_get_counters(&dev)->foreign, 1u);
 }
 
+/* A new host asking for a session while the device is bound must not keep the binding alive
+ * (over serial every frame reaches the device): only frames the device acts on count. */
+static void refused_queries_do_not_extend_the_binding(void)
+{
+    static rl_auth host, intruder;
+    rl_msg m;
+    start_keyed();
+    CHECK(host_connect(&host, KEY, 0x50));
+    m = msg_configure(1000, 3000, 0.0f, 0.0f, 100.0f);
+    CHECK(host_send(&host, &m) == RL_REJECT_NONE);
+    m = msg_stop(0);
+    CHECK(host_send(&host, &m) == RL_REJECT_NONE);
+    board.now += RL_RELEASE_US / 2u;
+    CHECK(!host_connect(&intruder, KEY, 0x60)); /* refused: bound */
+    board.now += RL_RELEASE_US / 2u + 1u;
+    CHECK(!rl_device_bound(&dev)); /* released on time all the same */
+    CHECK(host_connect(&intruder, KEY, 0x60));
+}
+
 void run_auth_tests(void)
 {
     RUN(sha256_published_examples);
@@ -313,4 +332,5 @@ void run_auth_tests(void)
     RUN(keyed_device_refuses_unkeyed_and_wrongly_keyed_hosts);
     RUN(replayed_frames_of_an_earlier_session_are_rejected);
     RUN(binding_holds_until_disarmed_and_silent);
+    RUN(refused_queries_do_not_extend_the_binding);
 }

@@ -183,15 +183,21 @@ def _key_files(tmp_path):
     return out
 
 
-def test_keyed_c_stub_runs_with_the_key_and_refuses_a_missing_or_wrong_one(tmp_path, stub_binary):
+@pytest.mark.parametrize("transport", ["udp", "pty"])
+def test_keyed_c_stub_runs_with_the_key_and_refuses_a_missing_or_wrong_one(tmp_path, stub_binary, transport):
     key, other = _key_files(tmp_path)
-    proc, addr = start_stub(stub_binary, "--udp", "127.0.0.1:0", "--key-file", str(key))
-    host, port = addr.rsplit(":", 1)
-    cfg = stub_config(tmp_path, {"link": "udp", "udp": {"host": host, "port": int(port)}})
+    if transport == "udp":
+        proc, addr = start_stub(stub_binary, "--udp", "127.0.0.1:0", "--key-file", str(key))
+        host, port = addr.rsplit(":", 1)
+        block = {"link": "udp", "udp": {"host": host, "port": int(port)}}
+    else:   # a serial line: one peer, and the stub's start-up HELLO went out before its key was set
+        proc, path = start_stub(stub_binary, "--pty", "--key-file", str(key))
+        block = {"link": "serial", "serial": {"port": path, "baud": 115200}}
+    cfg = stub_config(tmp_path, block)
     from rigloop.cli import main
 
     try:
-        code, s = _run(cfg, f"device.auth.key_file={key}", "limits.stale_periods=200")
+        code, s = _run(cfg, f"device.auth.key_file={key}", "limits.stale_periods=200", "device.watchdog_ms=2000")
         missing = main(["run", str(cfg), "--quiet", "--duration", "1"])
         wrong = main(["run", str(cfg), "--quiet", "--duration", "1", "--set", f"device.auth.key_file={other}"])
     finally:

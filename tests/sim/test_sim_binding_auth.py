@@ -214,6 +214,19 @@ def test_a_keyed_device_refuses_a_new_session_while_bound():
     assert dev.rejects.auth == 1
 
 
+def test_refused_queries_do_not_keep_the_binding_alive():
+    # over serial every frame reaches the device: a new host asking for a session while the device
+    # is bound is refused, and its asking must not hold the binding for ever (only frames acted on count)
+    dev = _device(KEY)
+    wire = Wire(dev, KEY)
+    wire.connect()
+    wire.send(Stop(0), 0)
+    intruder = Wire(dev, KEY)
+    assert intruder.send(Query(intruder.host.host_nonce), RELEASE_US // 2) == []
+    assert not dev.is_bound(RELEASE_US + 1)
+    assert intruder.send(Query(intruder.host.host_nonce), RELEASE_US + 1) != []
+
+
 # --- processes: rigloop run against rigloop sim --udp ----------------------------------------
 
 FOREIGN_VALUE = 99.25      # a duty the host never commands in the demo; the foreign process sends it

@@ -300,9 +300,11 @@ class SimDevice(HostBinding):
             self._reject(exc.reason, now_us, exc.detail)
             return []
         self.rejects.accepted += 1
-        if self.bound:
-            self._bound_rx_us = now_us
-        return self.handle(msg, now_us)
+        rejected = self.rejects.total_rejected
+        out = self.handle(msg, now_us)
+        if self.bound and self.rejects.total_rejected == rejected:
+            self._bound_rx_us = now_us      # only frames acted on keep the binding (§6.7)
+        return out
 
     def handle(self, msg: Message, now_us: int) -> list[Message]:
         """Act on one decoded message from the host; return what the device sends back."""
