@@ -285,8 +285,9 @@ class Engine(SessionLifecycle, FrontEndRequests):
                 self.link.send(Command(self.cmd_seq, s.seq, float(u_cmd)))
                 t_sent = time.perf_counter()
                 if self._arm_after_command is not None:
-                    self._arm(self._arm_after_command)
-                    self._arm_after_command = None
+                    source, self._arm_after_command = self._arm_after_command, None
+                    if self.state is State.IDLE:     # a first sample may already have tripped
+                        self._arm(source)
                 self.u_cmd = u_cmd
                 self.last_cmd_t = t
                 t_from = rx_first if (rx_first is not None and n == 1) else t_arrival
