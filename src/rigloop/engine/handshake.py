@@ -32,13 +32,14 @@ def _auth_problem(link, plain_query_sent: bool = True) -> str | None:
     if auth is None:
         return None
     if not auth.keyed and auth.keyed_hello_seen:
-        return (f"the device at {link.url} requires authenticated frames (it has a key) but this host "
-                "has none: set device.auth.key_file to the rig's key file")
+        return (f"key missing: the device at {link.url} requires authenticated frames (it has a key) but "
+                "this host has none; set device.auth.key_file to the rig's key file")
     if auth.keyed and auth.bad_hello is not None:
-        return (f"the device at {link.url} answered with a HELLO whose tag does not match this host's "
-                "key: the key in device.auth.key_file is wrong for this device (or someone else answered)")
+        return (f"key wrong: the device at {link.url} answered with a HELLO whose tag does not match this "
+                "host's key; the key in device.auth.key_file is not this device's (or someone else answered)")
     if auth.keyed and (auth.plain_hello_seen or (plain_query_sent and auth.legacy_hello_seen)):
-        return (f"the device at {link.url} does not authenticate its frames but this host has a key: "
+        return (f"device without a key: the device at {link.url} does not authenticate its frames but "
+                "this host has a key: "
                 "give the device the same key, or remove device.auth.key_file to run unauthenticated "
                 "(only on a link that stays on this machine)")
     return None
@@ -79,7 +80,7 @@ def handshake(link, cfg) -> Hello:
         raise EngineError(f"protocol mismatch: the host speaks version {PROTOCOL_VERSION}, the device "
                           f"speaks {hello.proto_min}..{hello.proto_max}; update the firmware or rigloop")
     if auth is not None and auth.keyed and (not auth.ready or hello.auth == AUTH_NONE):
-        raise AuthRefused(f"the device at {link.url} does not authenticate its frames (protocol "
+        raise AuthRefused(f"device without a key: the device at {link.url} does not authenticate its frames (protocol "
                           f"{'1.0' if not hello.extended else '1.1, no key set'}) but this host has a key: "
                           "give the device the same key, or remove device.auth.key_file")
     if hello.n_channels != len(cfg.channels):
