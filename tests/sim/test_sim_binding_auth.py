@@ -387,3 +387,31 @@ def test_the_demo_runs_keyed_with_the_simulated_device_started_by_the_engine(tmp
     assert "authenticated" in res.stdout
     meta = yaml.safe_load((next((tmp_path / "s").iterdir()) / "session.yaml").read_text())
     assert meta["summary"]["authenticated"] is True and meta["summary"]["rejected_frames"]["auth"] == 0
+
+
+def test_the_host_refuses_a_rate_outside_the_periods_the_hello_announces():
+    from rigloop.config import load_config
+    from rigloop.engine.handshake import EngineError, handshake
+    from rigloop.protocol.auth import HostAuth
+
+    cfg = load_config(DEMO_FAN, [])
+
+    class FakeLink:                       # a 1.1 device that can only sample every 50..5000 us
+        url = "fake://device"
+        auth = HostAuth(None)
+
+        def __init__(self):
+            self.out = []
+
+        def send(self, msg):
+            if isinstance(msg, Query) and msg.nonce is not None:
+                self.out.append(Hello(1, 1, 1, len(cfg.channels), 0, 1000, 10000, 0.0, 0.0, 100.0, "fast",
+                                      50, 5000, 0, bytes(8)))
+
+        def recv(self, timeout):
+            out, self.out = self.out, []
+            return out
+
+    assert cfg.device.period_us > 5000
+    with pytest.raises(EngineError, match="periods of 50..5000 us"):
+        handshake(FakeLink(), cfg)

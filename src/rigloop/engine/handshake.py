@@ -80,16 +80,17 @@ def handshake(link, cfg) -> Hello:
         raise EngineError(f"protocol mismatch: the host speaks version {PROTOCOL_VERSION}, the device "
                           f"speaks {hello.proto_min}..{hello.proto_max}; update the firmware or rigloop")
     if auth is not None and auth.keyed and (not auth.ready or hello.auth == AUTH_NONE):
-        raise AuthRefused(f"device without a key: the device at {link.url} does not authenticate its frames (protocol "
-                          f"{'1.0' if not hello.extended else '1.1, no key set'}) but this host has a key: "
-                          "give the device the same key, or remove device.auth.key_file")
+        raise AuthRefused(f"device without a key: the device at {link.url} does not authenticate its "
+                          f"frames (protocol {'1.0' if not hello.extended else '1.1, no key set'}) but this "
+                          "host has a key: give the device the same key, or remove device.auth.key_file")
     if hello.n_channels != len(cfg.channels):
         raise EngineError(f"the device sends {hello.n_channels} channels but the config lists "
                           f"{len(cfg.channels)} (channels: {', '.join(c.name for c in cfg.channels)}); "
                           "make the channels list match the firmware")
     period_us = cfg.device.period_us
     watchdog_us = cfg.device.watchdog_us
-    if hello.extended and hello.min_period_us and not hello.min_period_us <= period_us <= (hello.max_period_us or period_us):
+    lo, hi = (hello.min_period_us or 0), (hello.max_period_us or period_us)
+    if hello.extended and not lo <= period_us <= hi:
         raise EngineError(f"the device samples with periods of {hello.min_period_us}..{hello.max_period_us} us "
                           f"but the config asks for {period_us} us (device.rate_hz {cfg.device.rate_hz:g}); "
                           "choose a rate the device supports")

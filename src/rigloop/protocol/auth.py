@@ -185,7 +185,8 @@ class HostAuth:
         """A tagged HELLO carries the device nonce that completes the session: take it, verify."""
         end = HELLO_NONCE_OFFSET + NONCE_SIZE
         if len(payload) != end + TRAILER_SIZE:
-            raise ProtocolError("auth", f"tagged HELLO of {len(payload)} bytes; expected {end + TRAILER_SIZE}", _HELLO)
+            raise ProtocolError("auth", f"tagged HELLO of {len(payload)} bytes; expected "
+                                        f"{end + TRAILER_SIZE}", _HELLO)
         nonce = bytes(payload[HELLO_NONCE_OFFSET:end])
         mac = SessionMac(self.key, self.host_nonce + nonce)
         try:
