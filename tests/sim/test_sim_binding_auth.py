@@ -396,7 +396,7 @@ def test_the_host_refuses_a_rate_outside_the_periods_the_hello_announces():
 
     cfg = load_config(DEMO_FAN, [])
 
-    class FakeLink:                       # a 1.1 device that can only sample every 50..5000 us
+    class FakeLink:                       # a 1.1 device that can only sample every 50..1000 us
         url = "fake://device"
         auth = HostAuth(None)
 
@@ -406,12 +406,12 @@ def test_the_host_refuses_a_rate_outside_the_periods_the_hello_announces():
         def send(self, msg):
             if isinstance(msg, Query) and msg.nonce is not None:
                 self.out.append(Hello(1, 1, 1, len(cfg.channels), 0, 1000, 10000, 0.0, 0.0, 100.0, "fast",
-                                      50, 5000, 0, bytes(8)))
+                                      50, 1000, 0, bytes(8)))
 
         def recv(self, timeout):
             out, self.out = self.out, []
             return out
 
-    assert cfg.device.period_us > 5000
-    with pytest.raises(EngineError, match="periods of 50..5000 us"):
+    assert cfg.device.period_us > 1000
+    with pytest.raises(EngineError, match="periods of 50..1000 us"):
         handshake(FakeLink(), cfg)
