@@ -15,6 +15,8 @@ from pathlib import Path
 import pandas as pd
 import pytest
 import yaml
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from rigloop.plants import make_plant
 from rigloop.protocol import Arm, Command, Configure, Hello, ProtocolError, Query, Sample, Status, Stop, decode_frame
@@ -415,3 +417,28 @@ def test_the_host_refuses_a_rate_outside_the_periods_the_hello_announces():
     assert cfg.device.period_us > 1000
     with pytest.raises(EngineError, match="periods of 50..1000 us"):
         handshake(FakeLink(), cfg)
+
+
+@settings(max_examples=40, deadline=None)
+@given(st.lists(st.binary(min_size=1, max_size=120).map(lambda b: b.replace(b"\x00", b"\x33")), max_size=8),
+       st.lists(st.integers(1, 64), min_size=1, max_size=20))
+def test_keyed_simulated_device_takes_every_good_command_between_garbage_over_serial(garbage, chunks):
+    from rigloop.protocol.framing import encode_serial
+
+    dev = _device(KEY)
+    wire = Wire(dev, KEY)
+    wire.connect()
+    wire.send(Arm())
+    stream = b"\x00"
+    for i in range(len(garbage) + 1):
+        if i < len(garbage):
+            stream += garbage[i] + b"\x00"
+        stream += encode_serial(Command(i + 1, 0, float(i)), auth=wire.host)
+    accepted = dev.rejects.accepted
+    pos, k = 0, 0
+    while pos < len(stream):                       # arbitrary chunking of the byte stream
+        step = chunks[k % len(chunks)]
+        dev.feed_stream(stream[pos:pos + step], P)
+        pos, k = pos + step, k + 1
+    assert dev.rejects.accepted - accepted == len(garbage) + 1      # every good COMMAND, no garbage
+    assert dev._pending == (len(garbage) + 1, float(len(garbage)))
