@@ -11,6 +11,7 @@ import math
 from typing import NamedTuple
 
 from rigloop.config.model import Config
+from rigloop.control.window_choice import shortest_window
 
 #: Frame sizes from docs/protocol.md: version + type + body + CRC-16.
 SAMPLE_FRAME_FIXED = 27          # 2 + 23 + 2, plus 4 bytes per channel
@@ -95,10 +96,11 @@ def _estimator(cfg: Config, out: list[Derived]) -> None:
                            "window_s is not used)"))
     else:
         n = round(est.window_s * rate)
-        warn = n < WINDOW_SAMPLES_LOW or n > WINDOW_SAMPLES_HIGH
+        low = shortest_window(est.kind, ctl.order)     # the bound `rigloop identify` suggests from
+        warn = n < low or n > WINDOW_SAMPLES_HIGH
         note = f"{est.kind}, {_g(est.window_s * 1000)} ms"
-        if n < WINDOW_SAMPLES_LOW:
-            note += "; very few samples, F is estimated from noise - lengthen window_s"
+        if n < low:
+            note += f"; fewer than {low} samples, F is estimated from noise - lengthen window_s"
         elif n > WINDOW_SAMPLES_HIGH:
             note += ("; long windows cost compute per sample and follow F slowly - shorten "
                      "window_s")
