@@ -143,7 +143,7 @@ def test_a_flood_at_the_host_is_counted_in_the_session_and_logged_rate_limited(t
     meta = yaml.safe_load((res.session_dir / "session.yaml").read_text())
     assert meta["summary"]["foreign_frames"] >= 100
     samples = pd.read_csv(res.session_dir / "samples.csv")
-    assert samples.speed_rpm.max() < 99999.0 and samples.u.max() <= samples.u_cmd.max() + 1e-9
+    assert samples.speed_rpm.max() < 99999.0 and samples.u.max() <= samples.u_cmd.max() + 1e-4   # f32 on the wire
     events = pd.read_csv(res.session_dir / "events.csv")
     rows = events[events.kind == "link_rejected"]
     assert 1 <= len(rows) <= 2 + 4.0 / REPORT_EVERY_S * 3      # first, a few counts, the end

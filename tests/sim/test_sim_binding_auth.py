@@ -316,7 +316,7 @@ def test_a_foreign_process_cannot_drive_the_simulated_device(tmp_path):
     assert run.returncode == 0, stdout + stderr
     assert summary["foreign"] > 100                      # the foreign frames did arrive, and were dropped
     df = pd.read_csv(next(out.glob("*/samples.csv")))
-    assert (df.u <= df.u_cmd.max() + 1e-9).all()         # applied never exceeds what the host commanded
+    assert (df.u <= df.u_cmd.max() + 1e-4).all()         # applied never exceeds what the host commanded (f32)
     assert not (abs(df.u - FOREIGN_VALUE) < 1e-3).any()
     import numpy as np
 
