@@ -112,7 +112,10 @@ class SessionLifecycle:
         asked = bool(self.cfg.engine.realtime) and self.realtime
         if not self.cfg.engine.realtime:
             obtained, text = "normal", "scheduling: not changed, normal priority (engine.realtime: false)"
+        elif not self.realtime:
+            obtained, text = "normal", "scheduling: not changed, normal priority"
         else:
+            self._priority_before = priority.snapshot()
             obtained, text = priority.request_priority(realtime=asked)
         if self.cfg.engine.realtime and not self.realtime:
             text += " (lockstep simulation: device time is not wall time)"
@@ -348,6 +351,11 @@ class SessionLifecycle:
             return self.plan_result
 
     def _teardown(self) -> None:
+        if getattr(self, "_priority_before", None) is not None:
+            from rigloop.engine import priority
+
+            priority.restore(self._priority_before)
+            self._priority_before = None
         if self.link is not None:
             try:
                 self.link.close()
