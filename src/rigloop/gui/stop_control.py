@@ -15,6 +15,7 @@ whether the stop went out.
 from __future__ import annotations
 
 from PyQt6.QtCore import QEvent, QObject, Qt, pyqtSignal
+from PyQt6.QtGui import QKeySequence
 from PyQt6.QtWidgets import QLabel, QPushButton, QSizePolicy, QVBoxLayout
 
 from rigloop.gui import theme
@@ -64,10 +65,19 @@ class StopButton(QPushButton):
         return f"{self.word.text()} {self.subtitle.text()}"
 
 
+def _is_quit_key(event) -> bool:
+    """Ctrl+Q (Qt reports macOS's Cmd as Control), or the platform's own quit binding."""
+    ctrl = event.modifiers() & Qt.KeyboardModifier.ControlModifier
+    return bool(ctrl and event.key() == Qt.Key.Key_Q) or event.matches(QKeySequence.StandardKey.Quit)
+
+
 class StopKeyFilter(QObject):
-    """Install on the QApplication; emits ``triggered`` on every (non-repeat) press of the key."""
+    """Install on the QApplication; emits ``triggered`` on every (non-repeat) press of the key,
+    and ``quit_requested`` on the platform's quit keys (Ctrl+Q; Cmd+Q on macOS), which, like the
+    stop key, must work wherever the focus is."""
 
     triggered = pyqtSignal()
+    quit_requested = pyqtSignal()
 
     def __init__(self, parent=None, key=STOP_KEY):
         super().__init__(parent)
@@ -77,6 +87,11 @@ class StopKeyFilter(QObject):
     def eventFilter(self, obj, event) -> bool:  # noqa: N802 - Qt's name
         etype = event.type()
         if etype in (QEvent.Type.KeyPress, QEvent.Type.ShortcutOverride) and self.enabled:
+            if _is_quit_key(event):
+                if etype == QEvent.Type.KeyPress and not event.isAutoRepeat():
+                    self.quit_requested.emit()
+                event.accept()
+                return True
             if event.key() == self.key:
                 if etype == QEvent.Type.KeyPress and not event.isAutoRepeat():
                     self.triggered.emit()

@@ -86,7 +86,11 @@ def describe_trip(trip: dict | None, units: dict[str, str] | None = None) -> str
     cause = str(trip.get("cause") or "unknown")
     head = CAUSE_WORDS.get(cause, f"Trip ({cause})")
     message = str(trip.get("message") or "").strip().rstrip(".")
-    text = f"{head}: {message}." if message else f"{head}."
+    if message.lower().startswith(head.lower()):
+        # the engine's message already says it ("operator e-stop (gui button)"): once is enough
+        text = f"{message[0].upper()}{message[1:]}."
+    else:
+        text = f"{head}: {message}." if message else f"{head}."
     channel = trip.get("channel")
     unit = f" {units[channel]}" if channel and units.get(channel) else ""
     figures = []
@@ -102,6 +106,15 @@ def describe_trip(trip: dict | None, units: dict[str, str] | None = None) -> str
         first = figures[0]
         text += " " + first[0].upper() + first[1:] + "".join(", " + f for f in figures[1:]) + "."
     return text
+
+
+def describe_completed_run(runs: int, duration_s: float | None, session_dir: str | None) -> str:
+    """The banner's words after a run reached its duration and the rig went back to idle."""
+    which = "The run" if runs <= 1 else f"Run {runs}"
+    length = f" ({fmt_num(duration_s)} s)" if duration_s else ""
+    where = f" Recorded in {session_dir}." if session_dir else ""
+    return (f"{which} completed{length}: the actuator ramped down and holds its safe value.{where} "
+            "Arm to run the profile again (same recording).")
 
 
 def status_bit_words(bits: int | None) -> list[tuple[str, bool]]:
