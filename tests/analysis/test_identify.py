@@ -121,10 +121,10 @@ def test_profile_ramps_at_the_slew_limit_then_steps_up_and_back():
 @pytest.mark.parametrize("kwargs, option, words", [
     ({"step": 60.0}, "--step", ["--step 60", "[0, 100]", "at most 50"]),
     ({"at": 95.0}, "--step", ["default step 10", "at most 5"]),
-    ({"at": 120.0}, "--at", ["--at 120", "[0, 100]"]),
+    ({"at": 120.0}, "--operating-level", ["--operating-level 120", "[0, 100]"]),
     ({"step": 0.0}, "--step", ["--step 0", "non-zero"]),
     ({"hold_s": 0.01}, "--hold", ["--hold 0.01", ">= "]),
-    ({"settle_s": 100.0, "max_duration_s": 60.0}, "--settle", ["max_duration_s", "60"]),
+    ({"settle_s": 100.0, "max_duration_s": 60.0}, "--initial-hold", ["max_duration_s", "60"]),
 ])
 def test_plans_outside_the_limits_are_refused_with_the_option_named(kwargs, option, words):
     with pytest.raises(PlanError) as err:
@@ -294,7 +294,7 @@ def test_suggestions_follow_the_documented_rules():
 
 # ------------------------------------------------------------------------ the command
 def test_a_step_leaving_the_actuator_range_exits_2_naming_step(tmp_path, capsys):
-    code = main(["identify", DEMO_FAN, "--step", "60", "--out", str(tmp_path), *LOCKSTEP])
+    code = main(["identify", DEMO_FAN, "--step", "60", "--record-dir", str(tmp_path), *LOCKSTEP])
     err = capsys.readouterr().err
     assert code == 2
     assert "--step 60" in err and "[0, 100]" in err and "at most 50" in err
@@ -302,10 +302,10 @@ def test_a_step_leaving_the_actuator_range_exits_2_naming_step(tmp_path, capsys)
 
 
 def test_bad_tau_cl_and_write_folder_exit_2_before_anything_moves(tmp_path, capsys):
-    assert main(["identify", DEMO_FAN, "--tau-cl", "0.001", "--out", str(tmp_path)]) == 2
+    assert main(["identify", DEMO_FAN, "--tau-cl", "0.001", "--record-dir", str(tmp_path)]) == 2
     assert "--tau-cl 0.001" in capsys.readouterr().err
-    assert main(["identify", DEMO_FAN, "--write", str(tmp_path / "no" / "x.yaml"),
-                 "--out", str(tmp_path)]) == 2
+    assert main(["identify", DEMO_FAN, "--snippet-file", str(tmp_path / "no" / "x.yaml"),
+                 "--record-dir", str(tmp_path)]) == 2
     assert "does not exist" in capsys.readouterr().err
     assert not any(tmp_path.iterdir())
 
@@ -322,7 +322,7 @@ def _flatten(tree: dict, prefix: str = "") -> list[str]:
 
 @pytest.fixture(scope="module")
 def fan_identified(tmp_path_factory):
-    """One bump test on the simulated fan (lockstep), as JSON, with --write."""
+    """One bump test on the simulated fan (lockstep), as JSON, with --snippet-file."""
     folder = tmp_path_factory.mktemp("fan_identify")
     snippet = folder / "suggested.yaml"
     import contextlib
@@ -330,8 +330,8 @@ def fan_identified(tmp_path_factory):
 
     out = io.StringIO()
     with contextlib.redirect_stdout(out):
-        code = main(["identify", DEMO_FAN, *LOCKSTEP, "--json", "--write", str(snippet),
-                     "--out", str(folder / "sessions")])
+        code = main(["identify", DEMO_FAN, *LOCKSTEP, "--json", "--snippet-file", str(snippet),
+                     "--record-dir", str(folder / "sessions")])
     return code, json.loads(out.getvalue()), snippet, folder
 
 
@@ -391,20 +391,20 @@ def test_suggested_ip_meets_the_fan_plan_and_a_ten_times_alpha_fails_it(fan_iden
     _, report, snippet, _ = fan_identified
     sets = [a for kv in _flatten(yaml.safe_load(snippet.read_text())) for a in ("--set", kv)]
     base = ["run", DEMO_FAN, "--plan", FAN_PLAN, *LOCKSTEP, "--quiet"]
-    code = main([*base, *sets, "--out", str(tmp_path / "good")])
+    code = main([*base, *sets, "--record-dir", str(tmp_path / "good")])
     out = capsys.readouterr().out
     assert code == 0, out
     assert "test plan: PASS" in out
     bad_alpha = 10 * report["suggestions"]["alpha"]
-    code = main([*base, *sets, "--set", f"control.alpha={bad_alpha!r}", "--out", str(tmp_path / "bad")])
+    code = main([*base, *sets, "--set", f"control.alpha={bad_alpha!r}", "--record-dir", str(tmp_path / "bad")])
     out = capsys.readouterr().out
     assert code == 4, out
     assert "test plan: FAIL" in out
 
 
 def _motor_report(tmp_path, capsys, *extra) -> dict:
-    code = main(["identify", DEMO_MOTOR, *LOCKSTEP, *MOTOR_FREE, "--at", "3", "--step", "1.5",
-                 "--json", "--out", str(tmp_path), *extra])
+    code = main(["identify", DEMO_MOTOR, *LOCKSTEP, *MOTOR_FREE, "--operating-level", "3", "--step", "1.5",
+                 "--json", "--record-dir", str(tmp_path), *extra])
     captured = capsys.readouterr()
     assert code == 0, captured.err
     return json.loads(captured.out)
@@ -441,7 +441,7 @@ def test_motor_position_bump_test_order_2(tmp_path, capsys):
 @pytest.mark.slow
 def test_a_trip_exits_3_and_estimates_nothing(tmp_path, capsys):
     # the demo motor's position limit (8 rad) is reached within a second at 6 V
-    code = main(["identify", DEMO_MOTOR, *LOCKSTEP, "--out", str(tmp_path)])
+    code = main(["identify", DEMO_MOTOR, *LOCKSTEP, "--record-dir", str(tmp_path)])
     captured = capsys.readouterr()
     assert code == 3
     assert "nothing estimated" in captured.err and "tripped" in captured.err

@@ -152,16 +152,16 @@ def plan_bump(u_min: float, u_max: float, safe: float, slew_per_s: float | None,
               max_duration_s: float | None = None, unit: str = "") -> BumpPlan:
     """Check the wanted bump test against the actuator range and the run limits.
 
-    Raises :class:`PlanError` naming the option (``--at``, ``--step``, ``--settle``,
+    Raises :class:`PlanError` naming the option (``--operating-level``, ``--step``, ``--initial-hold``,
     ``--hold``), the value and what is allowed. ``u0 ± du`` must stay inside
     [u_min, u_max] so that the test may step either way from u0. The ramp from ``safe`` to u0
     runs at the slew limit, or over one second per full range when there is none.
     """
     span = u_max - u_min
     u_text = f" {unit}" if unit else ""
-    u0 = default_operating_point(u_min, u_max, safe) if at is None else _finite("--at", at)
+    u0 = default_operating_point(u_min, u_max, safe) if at is None else _finite("--operating-level", at)
     if not u_min <= u0 <= u_max:
-        raise PlanError("--at", f"--at {u0:g}: the operating level must lie in the actuator range "
+        raise PlanError("--operating-level", f"--operating-level {u0:g}: the operating level must lie in the actuator range "
                                 f"[{u_min:g}, {u_max:g}]{u_text}")
     du = DEFAULT_STEP_FRACTION * span if step is None else _finite("--step", step)
     if du == 0:
@@ -171,15 +171,15 @@ def plan_bump(u_min: float, u_max: float, safe: float, slew_per_s: float | None,
     if abs(du) > room:
         given = f"--step {du:g}" if step is not None else f"the default step {du:g}{u_text} (--step)"
         raise PlanError("--step", f"{given}: u0 ± du = {u0:g} ± {abs(du):g}{u_text} leaves the "
-                                  f"actuator range [{u_min:g}, {u_max:g}]{u_text}; at --at {u0:g} "
+                                  f"actuator range [{u_min:g}, {u_max:g}]{u_text}; at --operating-level {u0:g} "
                                   f"the step may be at most {room:g}{u_text} "
                                   f"(allowed: 0 < |--step| <= {room:g})")
     ts = 1.0 / rate_hz
     slew_time = abs(du) / slew_per_s if slew_per_s else 0.0
     shortest = max(MIN_HOLD_SAMPLES * ts, 4.0 * slew_time)
-    settle = DEFAULT_SETTLE_S if settle_s is None else _finite("--settle", settle_s)
+    settle = DEFAULT_SETTLE_S if settle_s is None else _finite("--initial-hold", settle_s)
     hold = DEFAULT_HOLD_S if hold_s is None else _finite("--hold", hold_s)
-    for option, value in (("--settle", settle), ("--hold", hold)):
+    for option, value in (("--initial-hold", settle), ("--hold", hold)):
         if value < shortest:
             raise PlanError(option, f"{option} {value:g}: too short to measure a level; allowed: "
                                     f">= {shortest:.3g} s ({MIN_HOLD_SAMPLES} samples and 4x the "
@@ -189,7 +189,7 @@ def plan_bump(u_min: float, u_max: float, safe: float, slew_per_s: float | None,
                     float(slew_per_s) if slew_per_s else None, float(settle), float(hold),
                     float(u_min), float(u_max), unit)
     if max_duration_s is not None and plan.duration_s >= max_duration_s:
-        raise PlanError("--settle", f"--settle {settle:g} and --hold {hold:g}: the bump test would "
+        raise PlanError("--initial-hold", f"--initial-hold {settle:g} and --hold {hold:g}: the bump test would "
                                     f"last {plan.duration_s:.3g} s, not below limits.max_duration_s "
                                     f"= {max_duration_s:g} s; shorten them or raise the limit")
     return plan
@@ -564,7 +564,7 @@ def analyse_bump(t: np.ndarray, y: np.ndarray, u: np.ndarray, *, order: int, pla
         start = _index_at(t, t_end - STEADY_FRACTION * length)
         if end - start < MIN_HOLD_SAMPLES // 2:
             raise EstimationError(f"a hold has only {end - start} steady samples; lengthen "
-                                  "--settle and --hold")
+                                  "--initial-hold and --hold")
         stretches.append(slice(start, end))
     s0 = stretches[0]
     noise = detrended_std(t[s0], y[s0], order + 1)
@@ -588,7 +588,7 @@ def analyse_bump(t: np.ndarray, y: np.ndarray, u: np.ndarray, *, order: int, pla
             continue
         est.gain = dl / du
         _check_settled(order, t[before], y[before], noise, ts, dl, direction,
-                       "--settle" if k == 0 else "--hold", warnings)
+                       "--initial-hold" if k == 0 else "--hold", warnings)
         # FOPDT fit over the steady stretch before the step and the whole hold after it
         seg = slice(before.start, i_next)
         u_prev = np.concatenate(([u[seg.start]], u[seg][:-1]))
