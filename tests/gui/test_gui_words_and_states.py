@@ -28,7 +28,7 @@ def test_a_completed_run_says_so_and_where_it_is_recorded():
 
     text = describe_completed_run(1, 20.0, "/data/sessions/20261204-101500_bench-fan")
     assert "completed (20 s)" in text and "/data/sessions/20261204-101500_bench-fan" in text
-    assert "safe value" in text
+    assert "output safe" in text
 
 
 # ------------------------------------------------------------------ idle screen
@@ -36,7 +36,7 @@ def test_idle_screen_labels_every_plot_and_says_there_is_no_data(qtbot, rig_wind
     win = rig_window()
     plots = win.live.plots
     labels = {key: plots.plots[key].getAxis("left").labelText for key in ("output", "actuator", "f_hat", "error")}
-    assert "speed_rpm [rpm]" in labels["output"] and "duty [%]" in labels["actuator"]
+    assert "[rpm]" in labels["output"] and "[%]" in labels["actuator"]
     assert "rpm/s" in labels["f_hat"] and "[rpm]" in labels["error"]
     assert all(item.isVisible() and item.textItem.toPlainText() == "no data yet" for item in plots._no_data.values())
     lo, hi = plots.plots["output"].viewRange()[1]
@@ -88,6 +88,10 @@ def test_no_near_warning_at_rest_from_a_limit_on_the_far_side():
         if 200.0 - 100.0 * k < 150:
             break
     assert word == "near"
+    coasting = MarginJudge()                             # the same fall, output safe: coming to rest
+    for k in range(2):
+        word = coasting.judge("speed_rpm", 200.0 - 100.0 * k, -100.0, 3300.0, t=k * 0.033, driven=False)
+    assert word == "ok"
     hot = MarginJudge()                                  # steady just under a maximum: near
     for k in range(30):
         word = hot.judge("temp_c", 69.0 + 0.2 * ((-1) ** k), None, 70.0, t=k * 0.03)

@@ -26,7 +26,7 @@ NEAR_FRACTION = 0.10
 #: Warning band whatever the direction (a value at rest right under its limit): a fiftieth.
 CLOSE_FRACTION = 0.02
 #: The noise can carry a value this many times its recent peak-to-peak spread.
-NOISE_REACH = 3.0
+NOISE_REACH = 1.0
 #: History used to tell a trend from noise, seconds.
 TREND_WINDOW_S = 1.0
 
@@ -37,10 +37,11 @@ class MarginJudge:
     """Says ``ok``, ``near`` or ``BEYOND`` for each guarded channel from its recent values.
 
     A side (min or max) is *near* when the value is inside that side's warning band and either
-    heads toward it (its trend over the last second moves it toward the limit by more than the
-    noise does), or sits in the inner band (:data:`CLOSE_FRACTION`) whatever its direction, or is
-    close enough for its own noise to reach the limit. A value at rest in the outer band, not
-    heading anywhere, is ``ok``: it cannot cross the limit without moving toward it first.
+    heads toward it while the loop drives the rig (its trend over the last second moves it toward
+    the limit by more than the noise does), or sits in the inner band (:data:`CLOSE_FRACTION`)
+    whatever its direction, or is close enough for its own noise to reach the limit. A value at
+    rest in the outer band is ``ok``: it cannot cross the limit without moving toward it first;
+    nor is a rig coasting down with its output safe warned about the limit beyond its rest point.
     """
 
     def __init__(self, window_s: float = TREND_WINDOW_S):
@@ -50,7 +51,7 @@ class MarginJudge:
     def reset(self) -> None:
         self._history.clear()
 
-    def judge(self, channel: str, value, lo, hi, t=None) -> str:
+    def judge(self, channel: str, value, lo, hi, t=None, driven: bool = True) -> str:
         if value is None or not isinstance(value, (int, float)) or not math.isfinite(value):
             return "-"
         if (lo is not None and value < lo) or (hi is not None and value > hi):
@@ -73,7 +74,7 @@ class MarginJudge:
             margin = (limit - value) * toward
             if margin >= NEAR_FRACTION * scale:
                 continue
-            heading = trend * toward > max(noise, 1e-12 * scale)
+            heading = driven and trend * toward > max(noise, 1e-12 * scale)
             if heading or margin < CLOSE_FRACTION * scale or margin < NOISE_REACH * noise:
                 return "near"
         return "ok"
@@ -112,7 +113,7 @@ class HealthPanel(QGroupBox):
         hdr.setMinimumSectionSize(40)
         hdr.setSectionResizeMode(QHeaderView.ResizeMode.Fixed)
         hdr.setSectionResizeMode(3, QHeaderView.ResizeMode.Stretch)
-        for col, width in enumerate((92, 86, 96)):
+        for col, width in enumerate((88, 84, 92)):
             self.table.setColumnWidth(col, width)
         self._fit_table(0)
         self.rate = QLabel("-")
@@ -165,7 +166,7 @@ class HealthPanel(QGroupBox):
         self.recording.setToolTip(path or "")
 
     def update_from_status(self, st: dict) -> None:
-        self._margins(st.get("margins") or [], st.get("t"))
+        self._margins(st.get("margins") or [], st.get("t"), st.get("state") in ("running", None))
         self._rate(st)
         rejected = {k: v for k, v in (st.get("rejected") or {}).items()
                     if k not in ("accepted", "total_rejected") and isinstance(v, (int, float))}
@@ -201,17 +202,17 @@ class HealthPanel(QGroupBox):
         want = f" (configured {self.rate_hz:g} Hz)" if self.rate_hz else ""
         self.rate.setText(f"{fmt_num(self._measured_hz, 4)} Hz{want}" if self._measured_hz else f"-{want}")
 
-    def _margins(self, margins: list[dict], t=None) -> None:
+    def _margins(self, margins: list[dict], t=None, driven: bool = True) -> None:
         if self.table.rowCount() != len(margins):
             self.table.setRowCount(len(margins))
         for row, m in enumerate(margins):
             unit = m.get("unit") or ""
             lo, hi = m.get("min"), m.get("max")
-            word = self.judge.judge(str(m.get("channel", "?")), m.get("value"), lo, hi, t)
+            word = self.judge.judge(str(m.get("channel", "?")), m.get("value"), lo, hi, t, driven)
             colour = _COLOURS[word]
             rng = f"{'' if lo is None else fmt_num(lo)} .. {'' if hi is None else fmt_num(hi)}"
             cells = [m.get("channel", "?"), f"{fmt_num(m.get('value'))} {unit}".strip(), rng,
-                     f"{word} {fmt_num(m.get('margin'))} {unit}".strip() if word != "-" else "-"]
+                     f"{word} {fmt_num(m.get('margin'), 3)}" if word != "-" else "-"]   # unit: the value's
             for col, text in enumerate(cells):
                 item = self.table.item(row, col)
                 if item is None:

@@ -117,6 +117,9 @@ class MainWindow(QMainWindow):
         self.tuning = TuningPanel()
         self.health = HealthPanel()
         side = QWidget()
+        side.setObjectName("sidePanel")
+        # a point smaller than the rest: tuning and health fit a 1280 x 720 screen unscrolled
+        side.setStyleSheet("QWidget#sidePanel, QWidget#sidePanel QWidget { font-size: 9pt; }")
         sl = QVBoxLayout(side)
         sl.setContentsMargins(0, 0, 4, 0)
         sl.setSpacing(6)

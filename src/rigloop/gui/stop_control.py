@@ -50,13 +50,13 @@ class StopButton(QPushButton):
                         "stop within reach.")
         self.setAccessibleName("Software stop (not an emergency-stop device)")
         self.setFocusPolicy(Qt.FocusPolicy.NoFocus)
-        self.setMinimumSize(150, 76)
+        self.setMinimumSize(172, 76)
         self.setSizePolicy(QSizePolicy.Policy.Fixed, QSizePolicy.Policy.Expanding)
         self.setStyleSheet(
             f"QPushButton#estop {{ background: {theme.STOP_RED}; border: 3px solid {theme.STOP_BORDER};"
             f" border-radius: 6px; }}"
             "QLabel#stopWord { color: white; font-size: 22pt; font-weight: 800; }"
-            "QLabel#stopSubtitle { color: white; font-size: 9.5pt; font-weight: 600; }"
+            "QLabel#stopSubtitle { color: white; font-size: 9pt; font-weight: 600; }"
             f"QPushButton#estop:pressed {{ background: {theme.STOP_RED_DOWN}; }}"
             f"QPushButton#estop:hover {{ border-color: white; }}")
 

@@ -92,7 +92,8 @@ class TracePlots(pg.GraphicsLayoutWidget):
             axis.setTextPen(theme.PLOT_TEXT)
         p.setMenuEnabled(False)
         p.hideButtons()
-        p.getAxis("left").setWidth(62)
+        p.getAxis("left").setWidth(68)
+        p.getAxis("left").enableAutoSIPrefix(False)     # "(x0.001)" beside a unit reads as a unit
         p.setMouseEnabled(x=False, y=False)
         # On the PlotItem, not on each curve: PlotItem.addItem() imposes its own settings
         # on every curve added to it.
@@ -149,8 +150,9 @@ class TracePlots(pg.GraphicsLayoutWidget):
                                  (c["bound"], f"min {u_min:g} / max {u_max:g}", st("bound"))])
         self._title("f_hat", [(c["f_hat"], f"F estimate{fu}", st("f_hat"))])
         self._title("error", [(c["e"], f"error e = y - r{ou}", st("e"))])
-        for key, text in (("output", f"{output}{ou}"), ("actuator", f"{actuator}{au}"),
-                          ("f_hat", f"F{fu}"), ("error", f"e{ou}")):
+        # the axes carry the units (the titles above name the traces)
+        for key, text in (("output", ou.strip() or output), ("actuator", au.strip() or actuator),
+                          ("f_hat", fu.strip() or "F"), ("error", ou.strip() or "e")):
             self.plots[key].getAxis("left").setLabel(text, color=theme.PLOT_TEXT)
         for value in (u_min, u_max):
             self._static_line("actuator", value, c["bound"], st("bound"))
@@ -243,6 +245,17 @@ class TracePlots(pg.GraphicsLayoutWidget):
             if not last:
                 axis.showLabel(False)
 
+    def _mark_empty_panels(self, per_plot: dict[str, list[np.ndarray]]) -> None:
+        """'no data yet' stays on a panel until it has a finite value (F and e stay empty while
+        the loop is idle: the estimator runs only while armed)."""
+        for key, label in self._no_data.items():
+            empty = not any(np.isfinite(a).any() for a in per_plot.get(key, ()))
+            if empty != label.isVisible():
+                label.setVisible(empty)
+            if empty:                   # the time axis moves on: keep the words in the middle
+                (x0, x1), (y0, y1) = self.plots[key].viewRange()
+                label.setPos((x0 + x1) / 2, (y0 + y1) / 2)
+
     def _place_no_data(self) -> None:
         """Centre the 'no data yet' words in each panel (or hide them once data arrived)."""
         for key, label in self._no_data.items():
@@ -262,7 +275,6 @@ class TracePlots(pg.GraphicsLayoutWidget):
             return
         if not self.has_data:
             self.has_data = True
-            self._place_no_data()
         i0 = max(0, buf.start_of(t_from) - 1) if t_from is not None else 0
         t = np.array(buf.column("t", i0))
         per_plot: dict[str, list[np.ndarray]] = {}
@@ -272,6 +284,7 @@ class TracePlots(pg.GraphicsLayoutWidget):
                 y = np.array(buf.column(col, i0))
                 curve.setData(t, y)
                 per_plot.setdefault(self._plot_of[name], []).append(y)
+        self._mark_empty_panels(per_plot)
         if follow and t_from is not None and t_to is not None:
             self.plots["output"].setXRange(t_from, t_to, padding=0)
             for key, arrays in per_plot.items():

@@ -94,9 +94,9 @@ def describe_trip(trip: dict | None, units: dict[str, str] | None = None) -> str
     channel = trip.get("channel")
     unit = f" {units[channel]}" if channel and units.get(channel) else ""
     figures = []
-    if trip.get("value") is not None:
+    if trip.get("value") is not None and fmt_num(trip["value"]) != "-":
         figures.append(f"value {fmt_num(trip['value'])}{unit}")
-    if trip.get("limit") is not None:
+    if trip.get("limit") is not None and fmt_num(trip["limit"]) != "-":
         figures.append(f"limit {fmt_num(trip['limit'])}{unit}")
     if trip.get("t") is not None:
         figures.append(f"at t = {fmt_num(trip['t'], 5)} s")
@@ -113,8 +113,7 @@ def describe_completed_run(runs: int, duration_s: float | None, session_dir: str
     which = "The run" if runs <= 1 else f"Run {runs}"
     length = f" ({fmt_num(duration_s)} s)" if duration_s else ""
     where = f" Recorded in {session_dir}." if session_dir else ""
-    return (f"{which} completed{length}: the actuator ramped down and holds its safe value.{where} "
-            "Arm to run the profile again (same recording).")
+    return f"{which} completed{length}; output safe.{where} Arm to run it again."
 
 
 def status_bit_words(bits: int | None) -> list[tuple[str, bool]]:
