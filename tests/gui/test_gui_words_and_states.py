@@ -175,3 +175,32 @@ def test_a_completed_run_says_it_completed_and_where(qtbot, rig_window, tmp_path
     assert "IDLE" in text and "The run completed (1 s)" in text
     folder = session_dirs(tmp_path / "sessions")[-1]
     assert str(folder) in text.replace("\u200b", "")
+
+
+# ------------------------------------------------------------------ layout
+def test_window_fits_1280x720_and_never_widens_itself(qtbot, rig_window):
+    win = rig_window()
+    win.resize(1280, 720)
+    qtbot.waitExposed(win)
+    hint = win.minimumSizeHint()
+    assert hint.width() <= 1280 and hint.height() <= 720
+    # the longest things the window says: a trip in the banner, a refusal under every field
+    win.banner.set_state("tripped", "A measured channel left its limits: speed_rpm 3105.2 rpm above its "
+                                    "maximum 3000 rpm. Value 3105 rpm, limit 3000 rpm, at t = 12.34 s.")
+    for key in win.tuning.fields:
+        win.tuning._say(key, "law = iPD refused: it needs a model of order 2, this session runs order 1; "
+                             "allowed now: iP, iPI, PID (change control.order in the config and reconnect)",
+                        "error")
+    win.warning_strip.setText("Config warnings: " + "the reference reaches 2500, at or above max 2000. " * 6)
+    win.warning_strip.setVisible(True)
+    qtbot.wait(50)
+    assert win.width() == 1280
+    assert win.minimumSizeHint().width() <= 1280
+    # the margin column shows its words whole
+    win.health.update_from_status({"state": "running", "t": 1.0, "margins": [
+        {"channel": "airflow_m3h", "unit": "m3/h", "value": 123.45, "min": -100.0, "max": 3300.0,
+         "margin": 223.45}]})
+    table = win.health.table
+    for col in range(4):
+        text = table.item(0, col).text()
+        assert table.fontMetrics().horizontalAdvance(text) <= table.columnWidth(col), (col, text)
