@@ -94,6 +94,7 @@ class TracePlots(pg.GraphicsLayoutWidget):
         p.hideButtons()
         p.getAxis("left").setWidth(68)
         p.getAxis("left").enableAutoSIPrefix(False)     # "(x0.001)" beside a unit reads as a unit
+        p.getAxis("left").setTickDensity(0.5)           # short panels: fewer, unpiled tick labels
         p.setMouseEnabled(x=False, y=False)
         # On the PlotItem, not on each curve: PlotItem.addItem() imposes its own settings
         # on every curve added to it.
