@@ -62,6 +62,17 @@ def test_config_warnings_are_shown_in_the_window(qtbot, rig_window):
     assert "2000" not in calm.warning_strip.text()
 
 
+def test_help_says_the_stop_is_not_an_emergency_stop_device(qtbot, rig_window):
+    win = rig_window()
+    qtbot.mouseClick(win.help_button, Qt.MouseButton.LeftButton)
+    qtbot.waitUntil(lambda: getattr(win, "help_box", None) is not None and win.help_box.isVisible(), timeout=5000)
+    text = win.help_box.text()
+    assert "not an emergency-stop device" in text and "hardwired emergency stop" in text
+    assert "Esc" in text and "Ctrl+Q" in text
+    assert "not an emergency-stop device" in win.stop_button.toolTip()
+    win.help_box.close()
+
+
 def test_ctrl_q_closes_the_window(qtbot, rig_window):
     win = rig_window()
     closed = []
@@ -143,8 +154,11 @@ def test_app_and_figure_share_the_palette_and_keep_the_reference_visible(tmp_pat
 # ------------------------------------------------------------------ against the simulated rig
 def test_rearmed_rig_stopped_again_shows_the_new_cause_not_the_old_one(qtbot, rig_window, tmp_path):
     """limit trip -> Reset -> Arm -> Esc: the banner says e-stop (as events.csv does), and each
-    arm starts the profile afresh from the measured speed."""
-    win = rig_window("limits.speed_rpm.max=700")
+    arm starts the profile afresh from the measured speed. The maximum lies between the
+    profile's first level (1200 rpm, reached in 1.5 s) and its second (2200 rpm at t = 2 s),
+    so the re-armed run has two seconds below it in which the e-stop comes."""
+    # (a device watchdog of 0.5 s: a loaded test machine must not trip the rig for another cause)
+    win = rig_window("limits.speed_rpm.max=1300", "device.watchdog_ms=500")
     assert win.connect_and_arm()
     qtbot.waitUntil(lambda: win.state == "tripped", timeout=LONG)
     assert "left its limits" in win.banner.text()
@@ -156,7 +170,7 @@ def test_rearmed_rig_stopped_again_shows_the_new_cause_not_the_old_one(qtbot, ri
     qtbot.waitUntil(lambda: win.state == "tripped", timeout=LONG)
     qtbot.waitUntil(lambda: "e-stop" in win.banner.text().lower(), timeout=LONG)
     assert "left its limits" not in win.banner.text()
-    assert "700" not in win.banner.text()
+    assert "1300" not in win.banner.text()
     win.close()
     qtbot.waitUntil(lambda: not win.session.connected, timeout=LONG)
     folder = session_dirs(tmp_path / "sessions")[-1]
@@ -167,7 +181,7 @@ def test_rearmed_rig_stopped_again_shows_the_new_cause_not_the_old_one(qtbot, ri
 
 
 def test_a_completed_run_says_it_completed_and_where(qtbot, rig_window, tmp_path):
-    win = rig_window("duration_s=1.0", "device.sim.clock=lockstep")
+    win = rig_window("duration_s=1.0", "device.sim.clock=lockstep", "device.watchdog_ms=500")
     assert win.connect_and_arm()
     qtbot.waitUntil(lambda: "completed" in win.banner.text(), timeout=LONG)
     assert win.state == "idle"

@@ -29,6 +29,17 @@ from rigloop.gui.tuning_panel import TuningPanel
 from rigloop.gui.words import describe_completed_run, describe_trip, state_headline
 
 WINDOW_SIZE = (1400, 860)
+
+#: what the Help button shows (docs/gui.md has the whole tour)
+HELP_TEXT = (
+    "<p><b>STOP</b> (the red button) or <b>Esc</b>, wherever the focus is: a <b>software stop</b>. "
+    "The engine sends STOP to the device at once and the trip latches until you press Reset trip.</p>"
+    "<p><b>This is not an emergency-stop device.</b> It relies on this computer, the link and the "
+    "device's firmware. The rig needs its own hardwired emergency stop, within reach, and guards "
+    "on everything that spins (safety.md).</p>"
+    "<p><b>Ramp down</b>: a controlled stop at the actuator's slew rate. Closing the window (or "
+    "<b>Ctrl+Q</b>, or SIGTERM) ramps a moving rig down first, then ends the session.</p>"
+    "<p>Tuning: press Enter in a field to send it; a refused value shows what is allowed.</p>")
 CLOSE_GRACE_S = 5.0
 
 
@@ -155,6 +166,19 @@ class MainWindow(QMainWindow):
         self.setCentralWidget(central)
         self.statusBar().showMessage(f"Software stop: the red button or the {STOP_KEY_TEXT} key, from anywhere in "
                                      "the window. It is not an emergency-stop device. Ctrl+Q quits.")
+        self.help_button = QPushButton("Help")
+        self.help_button.setFlat(True)
+        self.help_button.setToolTip("Keys, the stop control and what it is not")
+        self.help_button.clicked.connect(self.show_help)
+        self.statusBar().addPermanentWidget(self.help_button)
+
+    def show_help(self) -> None:
+        from PyQt6.QtWidgets import QMessageBox
+
+        box = QMessageBox(QMessageBox.Icon.Information, "rigloop - help", HELP_TEXT, parent=self)
+        box.setTextFormat(Qt.TextFormat.RichText)
+        box.open()
+        self.help_box = box
 
     # ------------------------------------------------------------------ config and device
     def open_demo(self) -> None:
