@@ -218,3 +218,41 @@ def test_window_fits_1280x720_and_never_widens_itself(qtbot, rig_window):
     for col in range(4):
         text = table.item(0, col).text()
         assert table.fontMetrics().horizontalAdvance(text) <= table.columnWidth(col), (col, text)
+
+
+def test_extra_channels_get_one_labelled_panel_per_unit(qtbot):
+    """Past sessions show every channel: A, m3/h and degC never share one unlabelled axis."""
+    from rigloop.gui.trace_plots import TracePlots
+
+    plots = TracePlots()
+    qtbot.addWidget(plots)
+    plots.configure(output="speed_rpm", output_unit="rpm", actuator="duty", actuator_unit="%",
+                    u_min=0.0, u_max=100.0)
+    units = {"current_a": "A", "airflow_m3h": "m3/h", "temp_c": "degC", "temp_b": "degC"}
+    plots.set_extra_channels(list(units), units)
+    extra = {k: p for k, p in plots.plots.items() if k.startswith("extra:")}
+    assert sorted(extra) == ["extra:A", "extra:degC", "extra:m3/h"]
+    for key, plot in extra.items():
+        assert plot.getAxis("left").labelText == f"[{key.removeprefix('extra:')}]"
+    in_degc = [n for n, p in plots._plot_of.items() if p == "extra:degC"]
+    assert sorted(in_degc) == ["ch:temp_b", "ch:temp_c"]
+    plots.add_marker(2.0, "TRIP: test")
+    assert len(plots.markers[0][1]) == len(plots.plots)          # the marker crosses every panel
+    plots.set_extra_channels([], units)
+    assert not any(k.startswith("extra:") for k in plots.plots)
+
+
+def test_demo_with_a_usable_display_opens_the_app_connected_and_running(monkeypatch, capsys):
+    import argparse
+
+    from rigloop.commands import demo, gui
+    from rigloop.gui import probe
+
+    calls = []
+    monkeypatch.setattr(demo, "has_display", lambda: True)
+    monkeypatch.setattr(probe, "probe_display", lambda *a, **k: probe.ProbeResult(True))
+    monkeypatch.setattr(gui, "launch_gui", lambda path, sets, **kw: calls.append(kw) or 0)
+    args = argparse.Namespace(config=None, headless=False, duration=None, set=[])
+    assert demo.run(args) == 0
+    assert calls and calls[0]["arm"] is True          # connects and starts by itself
+    assert "starts the run" in capsys.readouterr().out
