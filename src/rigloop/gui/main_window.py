@@ -14,9 +14,10 @@ import sys
 from pathlib import Path
 
 from PyQt6.QtCore import Qt, QTimer, pyqtSignal
-from PyQt6.QtWidgets import (QApplication, QGridLayout, QHBoxLayout, QLabel, QMainWindow, QPushButton,
-                             QScrollArea, QSizePolicy, QSplitter, QTabWidget, QVBoxLayout, QWidget)
+from PyQt6.QtWidgets import (QApplication, QGridLayout, QHBoxLayout, QMainWindow, QPushButton,
+                             QScrollArea, QSplitter, QTabWidget, QVBoxLayout, QWidget)
 
+from rigloop.gui.config_warnings import ConfigWarningStrip
 from rigloop.gui.connection_bar import ConnectionBar
 from rigloop.gui.device_choice import choice_from_config, overrides_for
 from rigloop.gui.engine_session import EngineSession
@@ -26,20 +27,10 @@ from rigloop.gui.past_sessions import PastSessions
 from rigloop.gui.state_banner import StateBanner
 from rigloop.gui.stop_control import STOP_KEY_TEXT, StopButton, StopKeyFilter
 from rigloop.gui.tuning_panel import TuningPanel
-from rigloop.gui.words import describe_completed_run, describe_trip, state_headline
+from rigloop.gui.words import HELP_TEXT, describe_completed_run, describe_trip, state_headline
 
 WINDOW_SIZE = (1400, 860)
 
-#: what the Help button shows (docs/gui.md has the whole tour)
-HELP_TEXT = (
-    "<p><b>STOP</b> (the red button) or <b>Esc</b>, wherever the focus is: a <b>software stop</b>. "
-    "The engine sends STOP to the device at once and the trip latches until you press Reset trip.</p>"
-    "<p><b>This is not an emergency-stop device.</b> It relies on this computer, the link and the "
-    "device's firmware. The rig needs its own hardwired emergency stop, within reach, and guards "
-    "on everything that spins (safety.md).</p>"
-    "<p><b>Ramp down</b>: a controlled stop at the actuator's slew rate. Closing the window (or "
-    "<b>Ctrl+Q</b>, or SIGTERM) ramps a moving rig down first, then ends the session.</p>"
-    "<p>Tuning: press Enter in a field to send it; a refused value shows what is allowed.</p>")
 CLOSE_GRACE_S = 5.0
 
 
@@ -147,14 +138,7 @@ class MainWindow(QMainWindow):
         split.setStretchFactor(0, 1)
         split.setSizes([WINDOW_SIZE[0] - 420, 420])
 
-        # legal but doubtful settings of the config (the same lines `rigloop check` prints)
-        self.warning_strip = QLabel()
-        self.warning_strip.setObjectName("configWarnings")
-        self.warning_strip.setProperty("role", "warn")
-        self.warning_strip.setWordWrap(True)
-        self.warning_strip.setTextInteractionFlags(Qt.TextInteractionFlag.TextSelectableByMouse)
-        self.warning_strip.setSizePolicy(QSizePolicy.Policy.Ignored, QSizePolicy.Policy.Preferred)
-        self.warning_strip.setVisible(False)
+        self.warning_strip = ConfigWarningStrip()
 
         central = QWidget()
         lay = QVBoxLayout(central)
@@ -206,20 +190,10 @@ class MainWindow(QMainWindow):
         self.past.set_root(Path(self.out_dir) if self.out_dir else cfg.recording.dir)
         self.tuning.bind(self.session, cfg)      # shows the config's values until connected
         self.live.preview(cfg)                   # labelled, empty plots until the first sample
-        self._show_config_warnings(cfg)
+        self.config_warnings = self.warning_strip.show_for(cfg)
         self.banner.set_state("disconnected", f"Config {Path(path).name} loaded (rig {cfg.rig}). "
                                               "Check the device, then Connect.")
         return True
-
-    def _show_config_warnings(self, cfg) -> None:
-        """Show the config's warnings (``rigloop check``'s WARNING lines) above the plots."""
-        from rigloop.config import warnings_of
-
-        self.config_warnings = [f"{w.label}: {w.note}" for w in warnings_of(cfg)]
-        if self.config_warnings:
-            head = "Config warning" + ("s" if len(self.config_warnings) > 1 else "")
-            self.warning_strip.setText(f"\u26a0 {head}: " + " \u2022 ".join(self.config_warnings))
-        self.warning_strip.setVisible(bool(self.config_warnings))
 
     def _show_problem(self, text: str) -> None:
         print(f"rigloop gui: {text}", file=sys.stderr)
@@ -254,7 +228,7 @@ class MainWindow(QMainWindow):
         self.trip_text = ""
         self.last_final = None
         self._runs_completed = 0
-        self._show_config_warnings(cfg)
+        self.config_warnings = self.warning_strip.show_for(cfg)
         self.session.start(cfg, sim_extra=self.sim_extra, out_dir=self.out_dir)
         self.live.start_session(cfg, self.session.fields)
         self.tuning.bind(self.session, cfg)

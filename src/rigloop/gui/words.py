@@ -21,6 +21,17 @@ STATE_WORDS: dict[str, tuple[str, str]] = {
     "tripped": ("TRIPPED \u2013 RIG STOPPED", "Stop latched. Read the cause, make the rig safe, then Reset."),
 }
 
+#: what the Help button shows (docs/gui.md has the whole tour)
+HELP_TEXT = (
+    "<p><b>STOP</b> (the red button) or <b>Esc</b>, wherever the focus is: a <b>software stop</b>. "
+    "The engine sends STOP to the device at once and the trip latches until you press Reset trip.</p>"
+    "<p><b>This is not an emergency-stop device.</b> It relies on this computer, the link and the "
+    "device's firmware. The rig needs its own hardwired emergency stop, within reach, and guards "
+    "on everything that spins (safety.md).</p>"
+    "<p><b>Ramp down</b>: a controlled stop at the actuator's slew rate. Closing the window (or "
+    "<b>Ctrl+Q</b>, or SIGTERM) ramps a moving rig down first, then ends the session.</p>"
+    "<p>Tuning: press Enter in a field to send it; a refused value shows what is allowed.</p>")
+
 #: trip cause -> plain sentence (safety.md lists the causes)
 CAUSE_WORDS: dict[str, str] = {
     "e-stop": "Operator e-stop",
