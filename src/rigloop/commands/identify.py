@@ -46,7 +46,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="also write the suggested YAML config snippet to FILE")
     parser.add_argument("--record-dir", dest="out", metavar="DIR",
                         help="folder for the session recording (overrides recording.dir)")
-    parser.add_argument("--out", dest="out", help=argparse.SUPPRESS)   # the former name of --record-dir
+    # former names, hidden: scripts written for them keep working
+    parser.add_argument("--out", dest="out", help=argparse.SUPPRESS)
+    parser.add_argument("--at", dest="at", type=float, help=argparse.SUPPRESS)
+    parser.add_argument("--settle", dest="settle", type=float, help=argparse.SUPPRESS)
+    parser.add_argument("--write", dest="write", help=argparse.SUPPRESS)
     parser.add_argument("--json", action="store_true", help="print one JSON object instead of the text")
     parser.add_argument("--quiet", action="store_true", help="no live status line (on stderr)")
 

@@ -124,6 +124,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--quit-with-parent", action="store_true",
                         help="quit when the process that started this one ends, as when the engine "
                              "starts the simulated device itself (always on with --clock lockstep)")
+    parser.add_argument("--exit-with-parent", dest="quit_with_parent", action="store_true",
+                        help=argparse.SUPPRESS)   # the former name, hidden
 
 
 class _UsageError(Exception):
