@@ -22,11 +22,15 @@ DEMO = REPO / "configs" / "demo_fan.yaml"
 SIZES = ((1280, 720), (1920, 1080))
 
 
+class _TimedOut(Exception):
+    pass
+
+
 def _wait(app, predicate, timeout_s: float, what: str) -> None:
     deadline = time.monotonic() + timeout_s
     while not predicate():
         if time.monotonic() > deadline:
-            raise SystemExit(f"timed out waiting for {what}")
+            raise _TimedOut(f"timed out waiting for {what}")
         app.processEvents()
         time.sleep(0.01)
 
@@ -83,40 +87,57 @@ def main(argv=None) -> int:
     # a machine busy with other work must not trip the rig on stale data while it is pictured
     base = [f"recording.dir={sessions}", "device.rate_hz=200", "device.watchdog_ms=500",
             "limits.stale_periods=100", "limits.overruns.max=100000"]
-    for w, h in sizes:
-        tag = f"{w}x{h}"
-        win = _window((w, h), base)
-        _shoot(app, win, args.out / f"gui-{tag}-disconnected.png")
-        win.connect_rig()
-        _wait(app, lambda: win.state == "idle", 60, "idle")
-        _settle(app, 1.0)
-        _shoot(app, win, args.out / f"gui-{tag}-idle.png")
-        win.arm()
-        _wait(app, lambda: win.state == "running", 60, "running")
-        _settle(app, 6.0)
-        if h >= 1000:                 # room for two more panels (one per unit)
-            win.live.tick_channel("current_a")
-            win.live.tick_channel("temp_c")
-        _settle(app, 1.0)
-        _shoot(app, win, args.out / f"gui-{tag}-running.png")
-        _wait(app, lambda: "completed" in win.banner.text(), 60, "the run to complete")
-        _settle(app, 1.0)
-        _shoot(app, win, args.out / f"gui-{tag}-completed.png")
-        _close(app, win)
-
-        win = _window((w, h), [*base, "limits.speed_rpm.max=2000"])
-        win.connect_and_arm()
-        _wait(app, lambda: win.state == "tripped", 60, "the limit trip")
-        _settle(app, 1.5)
-        _shoot(app, win, args.out / f"gui-{tag}-tripped.png")
-        win.tabs.setCurrentWidget(win.past)
-        win.past.refresh()
-        win.past.open(win.past.list.item(1).data(256))     # the completed run of the first window
-        _settle(app, 0.5)
-        win.past.plots.move_cursor(4.0)
-        _shoot(app, win, args.out / f"gui-{tag}-past-sessions.png")
-        _close(app, win)
+    windows = []
+    try:
+        for size in sizes:
+            _pictures(app, size, base, args.out, windows)
+    except _TimedOut as exc:
+        print(f"gui_screenshots: {exc} (a busy machine can trip the rig; try again)", file=sys.stderr)
+        return 1
+    finally:
+        for win in windows:             # end every engine: no shared memory left behind
+            if win.session.connected:
+                _close(app, win)
     return 0
+
+
+def _pictures(app, size, base, out, windows) -> None:
+    """idle, running, completed; then tripped and past sessions, at one window size."""
+    w, h = size
+    tag = f"{w}x{h}"
+    win = _window((w, h), base)
+    windows.append(win)
+    _shoot(app, win, out / f"gui-{tag}-disconnected.png")
+    win.connect_rig()
+    _wait(app, lambda: win.state == "idle", 60, "idle")
+    _settle(app, 1.0)
+    _shoot(app, win, out / f"gui-{tag}-idle.png")
+    win.arm()
+    _wait(app, lambda: win.state == "running", 60, "running")
+    _settle(app, 6.0)
+    if h >= 1000:                 # room for two more panels (one per unit)
+        win.live.tick_channel("current_a")
+        win.live.tick_channel("temp_c")
+    _settle(app, 1.0)
+    _shoot(app, win, out / f"gui-{tag}-running.png")
+    _wait(app, lambda: "completed" in win.banner.text(), 60, "the run to complete")
+    _settle(app, 1.0)
+    _shoot(app, win, out / f"gui-{tag}-completed.png")
+    _close(app, win)
+
+    win = _window((w, h), [*base, "limits.speed_rpm.max=2000"])
+    windows.append(win)
+    win.connect_and_arm()
+    _wait(app, lambda: win.state == "tripped", 60, "the limit trip")
+    _settle(app, 1.5)
+    _shoot(app, win, out / f"gui-{tag}-tripped.png")
+    win.tabs.setCurrentWidget(win.past)
+    win.past.refresh()
+    win.past.open(win.past.list.item(1).data(256))     # the completed run of the first window
+    _settle(app, 0.5)
+    win.past.plots.move_cursor(4.0)
+    _shoot(app, win, out / f"gui-{tag}-past-sessions.png")
+    _close(app, win)
 
 
 if __name__ == "__main__":
