@@ -35,6 +35,31 @@ def _pen(colour: str, width: float = TRACE_WIDTH, style: str = "solid"):
     return pen
 
 
+class _SpacedAxis(pg.AxisItem):
+    """A value axis whose tick labels never pile up: on a short panel (many channels on a small
+    screen) the tick spacing doubles until labels are :data:`MIN_TICK_PX` apart."""
+
+    MIN_TICK_PX = 13
+
+    def tickSpacing(self, minVal, maxVal, size):  # noqa: N802 - pyqtgraph's name
+        levels = super().tickSpacing(minVal, maxVal, size)
+        span = maxVal - minVal
+        if not levels or span <= 0 or size <= 0:
+            return levels
+        spacing, offset = levels[0]
+        while spacing * size / span < self.MIN_TICK_PX and 2 * spacing <= span:
+            spacing *= 2
+        return [(spacing, offset)]
+
+
+def _tick_font():
+    from PyQt6.QtGui import QFont
+
+    font = QFont()
+    font.setPointSizeF(8.0)
+    return font
+
+
 def _trip_pen():
     """Trip markers are few and must stand out: 2 px, not the traces' fast 1 px."""
     return pg.mkPen(theme.TRACE_COLOURS["trip"], width=2)
@@ -82,7 +107,7 @@ class TracePlots(pg.GraphicsLayoutWidget):
         self._update_axes()
 
     def _new_plot(self, key: str) -> pg.PlotItem:
-        p = pg.PlotItem()
+        p = pg.PlotItem(axisItems={"left": _SpacedAxis("left")})
         p.showGrid(x=True, y=True, alpha=0.25)
         for side in ("left", "bottom"):
             # major ticks only: each grid level costs as much to paint as all the traces
@@ -93,8 +118,9 @@ class TracePlots(pg.GraphicsLayoutWidget):
         p.setMenuEnabled(False)
         p.hideButtons()
         p.getAxis("left").setWidth(68)
+        p.getAxis("left").setStyle(tickFont=_tick_font())
         p.getAxis("left").enableAutoSIPrefix(False)     # "(x0.001)" beside a unit reads as a unit
-        p.getAxis("left").setTickDensity(0.5)           # short panels: fewer, unpiled tick labels
+
         p.setMouseEnabled(x=False, y=False)
         # On the PlotItem, not on each curve: PlotItem.addItem() imposes its own settings
         # on every curve added to it.
