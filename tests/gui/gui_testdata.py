@@ -16,7 +16,7 @@ DEMO_FAN = REPO / "configs" / "demo_fan.yaml"
 #: The rate is pinned so that the figures the tests check (window lengths in samples) stay put.
 RATE_HZ = 100
 CALM_SETS = [f"device.rate_hz={RATE_HZ}", "limits.stale_periods=100", "limits.overruns.max=100000",
-             "duration_s=null", "limits.max_duration_s=600", "device.watchdog_ms=500"]
+             "duration_s=null", "limits.max_duration_s=600", "device.watchdog_ms=2000"]
 
 
 def read_rx_log(path: Path) -> list[dict]:
