@@ -26,7 +26,7 @@ from pathlib import Path
 from rigloop.engine.front_end import FrontEndRequests, _Request
 from rigloop.engine.handshake import EngineError  # noqa: F401 - public name, imported from here
 from rigloop.engine.records import EventRecord, TickRecord, Trip, num_or_none
-from rigloop.engine.recorder import SessionRecorder, utc_now_iso
+from rigloop.engine.recorder import SessionRecorder, describe_os_error, utc_now_iso
 from rigloop.engine.session import RunResult, SessionLifecycle  # noqa: F401 - RunResult is public here
 from rigloop.engine.states import State, next_state
 from rigloop.engine.tunables import control_params_from_config  # noqa: F401 - imported from here by bench/
@@ -87,13 +87,19 @@ class Engine(SessionLifecycle, FrontEndRequests):
         self._ramp_then: str | None = None
         self.plan = cfg.plan
         self.plan_result: dict | None = None
-        self._stop_check: int | None = None
+        self._stop_check: int | None = None   # newest sample seq on the host when STOP went out
+        self._stop_dev_t: float | None = None  # device time STOP left the host (estimate), if known
         self._last_seq = 0
+        self._rx_newest_seq = 0               # newest sample seq received (handled or not)
         self.t_last: float | None = None      # device time of the newest sample (s), None before any
         self._armed_seen = False
         self._arm_wait = 0
         self._status_bits = 0                 # the device's status in its newest sample
         self._wall_minus_perf = time.time() - time.perf_counter()
+        self.realtime = True
+        self.scheduling: dict | None = None
+        #: opens the recorder's CSV files (tests inject failing files here); None = plain files
+        self.recorder_opener = None
 
     def add_subscriber(self, sub) -> None:
         self.subscribers.append(sub)
@@ -169,6 +175,10 @@ class Engine(SessionLifecycle, FrontEndRequests):
         return t if t <= t_arrival else t_arrival
 
     def _route(self, msgs) -> list:
+        for m in reversed(msgs):   # before any FAULT in this read trips: these samples predate STOP
+            if isinstance(m, Sample):
+                self._rx_newest_seq = m.seq
+                break
         samples = []
         for m in msgs:
             if isinstance(m, Sample):
@@ -223,7 +233,7 @@ class Engine(SessionLifecycle, FrontEndRequests):
             y = values[self.out_idx]
             self._status_bits = s.status
             self._last_seq = s.seq
-            if self._stop_check is not None and ((s.seq - self._stop_check) & 0xFFFFFFFF) >= 2:
+            if self._stop_check is not None and self._sent_after_stop(s.seq, t):
                 self._confirm_stop(t, s.status)
             running = self.state is State.RUNNING
             trip = self._check_arm_confirmed(t, s.status) \
@@ -240,6 +250,9 @@ class Engine(SessionLifecycle, FrontEndRequests):
                         self._start_blend(y)
                 t_rel = t - self.run_t0
                 if self.open_loop is not None:           # bump tests: u from a profile, no law
+                    observe = getattr(self.open_loop, "observe", None)
+                    if observe is not None:              # a profile that holds until settled
+                        observe(t_rel, y)
                     u_req = self.open_loop(t_rel)
                 else:
                     r, dr, ddr = self.reference.at(t_rel - self.ref_origin)
@@ -330,10 +343,28 @@ class Engine(SessionLifecycle, FrontEndRequests):
         """Write STOP to the wire now and remember to check that the device latched it."""
 
         self.link.send(Stop(reason))
-        self._stop_check = self._last_seq
+        # Judge only samples the device sent after it could have seen this STOP: not those
+        # already received (a frozen host reads a backlog of ARMED samples together with the
+        # watchdog FAULT), nor - on a real-time clock - those the device sent while the host was
+        # not reading: the device's clock ran on by the wall time since the newest sample came.
+        self._stop_check = self._rx_newest_seq
+        if self.realtime and self.t_last is not None:
+            self._stop_dev_t = self.t_last + max(0.0, time.perf_counter() - self.last_sample_host)
+        else:
+            self._stop_dev_t = None
+
+    def _sent_after_stop(self, seq: int, t: float) -> bool:
+        """True when sample ``seq`` (device time ``t``) left the device after STOP reached it:
+        two sequence numbers past the newest sample received when STOP went out (one may be in
+        flight) and, on a real-time clock, a period past STOP's estimated device time."""
+        ahead = (seq - self._stop_check) & 0xFFFFFFFF
+        if ahead < 2 or ahead >= 1 << 31:
+            return False
+        return self._stop_dev_t is None or t >= self._stop_dev_t + self.period
 
     def _confirm_stop(self, t: float, status: int) -> None:
         self._stop_check = None
+        self._stop_dev_t = None
         if status & ARMED and not status & STOP_LATCHED:
             self._emit(EventRecord(
                 "warning", "the device did not latch STOP (still ARMED, no STOP_LATCHED); it may ignore STOP — "
@@ -360,8 +391,9 @@ class Engine(SessionLifecycle, FrontEndRequests):
         if trip is not None:
             self._trip(trip)
             return
-        if self.duration_s is not None and t_rel >= self.duration_s and self._ramp_then is None:
-            self.stop_reason = "duration reached"
+        finished = self.open_loop is not None and getattr(self.open_loop, "finished", False)
+        if (finished or self.duration_s is not None and t_rel >= self.duration_s) and self._ramp_then is None:
+            self.stop_reason = "profile finished" if finished else "duration reached"
             # headless: the session ends; with a front end: back to idle, ready to arm again
             self._ramp_down(then="complete" if self.end_when_done else "idle")
 
@@ -516,9 +548,10 @@ class Engine(SessionLifecycle, FrontEndRequests):
     def _subscriber_failed(self, sub, exc: Exception) -> None:
         if getattr(sub, "critical", False):
             self.subscribers.remove(sub)
-            log.error("recorder failed: %s", exc)
-            self._trip(Trip("recorder-failed", f"the recorder failed ({exc}); stopping rather than running unrecorded",
-                            t=self.t_last))
+            why = describe_os_error(exc) if isinstance(exc, OSError) else f"{type(exc).__name__}: {exc}"
+            self._trip(Trip("recorder-failed", f"the recorder could not write ({why}); stopped rather "
+                                               f"than running unrecorded", t=self.t_last))   # STOP first
+            log.error("recorder failed: %s", why)
         else:
             log.warning("display subscriber %r failed: %s (removed)", sub, exc)
             self.subscribers.remove(sub)

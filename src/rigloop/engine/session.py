@@ -13,7 +13,7 @@ from pathlib import Path
 
 from rigloop.engine.handshake import EngineError, handshake
 from rigloop.engine.records import EventRecord, Trip
-from rigloop.engine.recorder import SessionRecorder, make_session_dir
+from rigloop.engine.recorder import SessionRecorder, describe_os_error, make_session_dir
 from rigloop.engine.states import State
 from rigloop.engine.supervisor import Supervisor
 from rigloop.engine.timing import LogHistogram
@@ -24,6 +24,18 @@ from rigloop.plain_data import plain
 log = logging.getLogger("rigloop.engine")
 
 LOCKSTEP_STALE_FLOOR_S = 0.5   # wall seconds without a sample before a lockstep run trips stale
+
+
+class SessionRefused(EngineError):
+    """The session cannot start for a reason the user fixes (recording folder, disk space):
+    refused before anything is made or moves; ``rigloop run`` exits 2."""
+
+
+class _QuietFileHandler(logging.FileHandler):
+    """engine.log on a disk that fills up: stop logging there instead of printing tracebacks."""
+
+    def handleError(self, record) -> None:  # noqa: N802 - logging's name
+        self.failed = True
 
 
 @dataclass
@@ -40,13 +52,77 @@ class RunResult:
 class SessionLifecycle:
     """Set up, run and end one session; the loop's methods come from the engine class."""
 
+    def _preflight(self) -> None:
+        """Refuse (SessionRefused) before creating anything: unusable folder, too little space."""
+        from rigloop.engine.disk_budget import recording_dir_problem, space_problem
+
+        problem = recording_dir_problem(self.out_dir)
+        if problem is not None:
+            raise SessionRefused(f"recording folder {self.out_dir} {problem}")
+        duration = self.duration_s if self._duration_given else None
+        problem = space_problem(self.cfg, self.out_dir, duration)
+        if problem is not None:
+            raise SessionRefused(problem)
+
     def _setup_session(self) -> None:
-        self.session_dir = make_session_dir(self.out_dir, self.cfg.rig)
-        handler = logging.FileHandler(self.session_dir / "engine.log", encoding="utf-8")
+        try:
+            self.session_dir = make_session_dir(self.out_dir, self.cfg.rig)
+        except OSError as exc:
+            raise SessionRefused(f"cannot make a session folder in {self.out_dir}: "
+                                 f"{describe_os_error(exc)}; choose another recording.dir (--out)") from None
+        try:
+            handler = _QuietFileHandler(self.session_dir / "engine.log", encoding="utf-8")
+        except OSError as exc:
+            self._remove_session_dir()
+            raise SessionRefused(f"cannot write in {self.out_dir}: {describe_os_error(exc)}") from None
         handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(message)s"))
         log.addHandler(handler)
         log.setLevel(logging.INFO)
         self._log_handler = handler
+
+    def _start_recording(self, url: str) -> None:
+        """session.yaml, samples.csv and events.csv before the link opens, so that a failed
+        start is recorded too. On a full disk: remove what was made and refuse."""
+        try:
+            self.recorder = SessionRecorder(self.session_dir, self.cfg, device_url=url,
+                                            opener=self.recorder_opener)
+        except OSError as exc:
+            self._remove_session_dir()
+            raise SessionRefused(f"cannot write the recording in {self.out_dir}: "
+                                 f"{describe_os_error(exc)}; free some space or choose another "
+                                 f"recording.dir (--out)") from None
+        self.subscribers.insert(0, self.recorder)
+
+    def _remove_session_dir(self) -> None:
+        """Undo :meth:`_setup_session` (refused before anything ran: leave no empty folder)."""
+        import shutil
+
+        if self._log_handler is not None:
+            log.removeHandler(self._log_handler)
+            self._log_handler.close()
+            self._log_handler = None
+        if self.session_dir is not None:
+            shutil.rmtree(self.session_dir, ignore_errors=True)
+            self.session_dir = None
+
+    def _take_scheduling(self) -> dict:
+        """Ask for real-time scheduling when configured and meaningful; say what was obtained."""
+        from rigloop.engine import priority
+
+        asked = bool(self.cfg.engine.realtime) and self.realtime
+        if not self.cfg.engine.realtime:
+            obtained, text = "normal", "scheduling: not changed, normal priority (engine.realtime: false)"
+        else:
+            obtained, text = priority.request_priority(realtime=asked)
+        if self.cfg.engine.realtime and not self.realtime:
+            text += " (lockstep simulation: device time is not wall time)"
+        info = {"asked": "SCHED_FIFO" if asked else "none", "obtained": obtained,
+                "result": text.removeprefix("scheduling: ")}
+        log.info(text)
+        self._emit(EventRecord("scheduling", text))
+        if self.recorder is not None:
+            self.recorder.update_meta(scheduling=info)
+        return info
 
     def _open_link(self):
         cfg = self.cfg
@@ -77,23 +153,22 @@ class SessionLifecycle:
         log.info("device %r configured: %s", h.name, info)
 
     def run(self) -> RunResult:
-        from rigloop.control.controller import Controller
-        from rigloop.control.reference import build_reference
-        from rigloop.control.shaping import ActuatorShaper
-        from rigloop.engine.priority import raise_priority
-
         cfg = self.cfg
-        self._setup_session()
-        url = "?"
+        url = cfg.device.url
+        try:
+            self._preflight()
+            self._setup_session()
+            self._start_recording(url)
+        except SessionRefused:
+            self._teardown()
+            raise
         try:
             url = self._open_link()
-            self.recorder = SessionRecorder(self.session_dir, cfg, device_url=url)
-            self.subscribers.insert(0, self.recorder)
-            realtime = not (cfg.device.link == "sim" and cfg.device.sim.clock == "lockstep")
-            self.realtime = realtime
+            self.recorder.update_meta(device={"url": url, "hello": None})
+            self.realtime = not (cfg.device.link == "sim" and cfg.device.sim.clock == "lockstep")
             log.info("rigloop engine for rig %r, link %s, %g Hz, pacing %s", cfg.rig, url,
                      cfg.device.rate_hz, cfg.device.pacing)
-            log.info(raise_priority(realtime=realtime))
+            self.scheduling = self._take_scheduling()
             self._handshake()
         except Exception as exc:
             msg = str(exc) if isinstance(exc, EngineError) else f"{type(exc).__name__}: {exc}"
@@ -104,7 +179,30 @@ class SessionLifecycle:
             self._finish_files({})
             self._teardown()
             raise EngineError(msg) from exc
+        self._prepare_run(url)
+        try:
+            self._loop()
+        except Exception as exc:  # the safety path fails loudly: stop the rig, then report
+            log.exception("internal error")
+            self._trip(Trip("internal-error", f"{type(exc).__name__}: {exc}", t=self.t_last))
+            self.outcome = "tripped"
+            self.stop_reason = f"internal error: {exc}"
+            self._finish_files(self._summary())
+            self._teardown()
+            raise
+        summary = self._summary()
+        self._finish_files(summary)
+        self._teardown()
+        return RunResult(self.outcome, self._exit_code(), self.session_dir, self.trip, summary,
+                         self.stop_reason, self.plan_result)
 
+    def _prepare_run(self, url: str) -> None:
+        """Build the per-run state the loop works on (controller, reference, supervisor, counters)."""
+        from rigloop.control.controller import Controller
+        from rigloop.control.reference import build_reference
+        from rigloop.control.shaping import ActuatorShaper
+
+        cfg = self.cfg
         self.period = 1.0 / cfg.device.rate_hz
         self.scales = [(c.scale, c.offset) for c in cfg.channels]
         self.out_idx = cfg.channel_index(cfg.control.output)
@@ -153,21 +251,6 @@ class SessionLifecycle:
         self._emit(EventRecord("connected", f"{url} device {self.hello.name!r}"))
         if self.autostart:
             self._arm("autostart")
-        try:
-            self._loop()
-        except Exception as exc:  # the safety path fails loudly: stop the rig, then report
-            log.exception("internal error")
-            self._trip(Trip("internal-error", f"{type(exc).__name__}: {exc}", t=self.t_last))
-            self.outcome = "tripped"
-            self.stop_reason = f"internal error: {exc}"
-            self._finish_files(self._summary())
-            self._teardown()
-            raise
-        summary = self._summary()
-        self._finish_files(summary)
-        self._teardown()
-        return RunResult(self.outcome, self._exit_code(), self.session_dir, self.trip, summary,
-                         self.stop_reason, self.plan_result)
 
     def _exit_code(self) -> int:
         if self.outcome == "completed":
@@ -233,8 +316,10 @@ class SessionLifecycle:
         if self.recorder is not None:
             self.recorder.close(outcome=self.outcome, stop_reason=self.stop_reason,
                                 trip=self.trip.as_dict() if self.trip else None, summary=plain(summary))
-            if self.plan:
+            if self.plan and self.recorder.failure is None:
                 self.recorder.update_meta(plan=self._evaluate_plan())
+            if self.recorder.meta_error is not None:
+                log.error("session.yaml could not be written: %s", describe_os_error(self.recorder.meta_error))
 
     def _evaluate_plan(self) -> dict:
         try:
