@@ -35,21 +35,28 @@ def _pen(colour: str, width: float = TRACE_WIDTH, style: str = "solid"):
     return pen
 
 
-class _SpacedAxis(pg.AxisItem):
-    """A value axis whose tick labels never pile up: on a short panel (many channels on a small
-    screen) the tick spacing doubles until labels are :data:`MIN_TICK_PX` apart."""
+#: tick labels of a value axis at least this far apart (a short panel doubles the spacing)
+MIN_TICK_PX = 13
 
-    MIN_TICK_PX = 13
 
-    def tickSpacing(self, minVal, maxVal, size):  # noqa: N802 - pyqtgraph's name
-        levels = super().tickSpacing(minVal, maxVal, size)
-        span = maxVal - minVal
+def _spaced_ticks(axis, default):
+    """Wrap the axis's own tick spacing so that its labels never pile up on a short panel (many
+    channels on a small screen): the spacing doubles until labels are MIN_TICK_PX apart.
+
+    A wrapper on pyqtgraph's own axis, not a subclass handed to PlotItem: an axis made outside
+    its plot stays owned by Python and can be freed twice when the window is deleted."""
+
+    def tick_spacing(min_val, max_val, size):
+        levels = default(min_val, max_val, size)
+        span = max_val - min_val
         if not levels or span <= 0 or size <= 0:
             return levels
         spacing, offset = levels[0]
-        while spacing * size / span < self.MIN_TICK_PX and 2 * spacing <= span:
+        while spacing * size / span < MIN_TICK_PX and 2 * spacing <= span:
             spacing *= 2
         return [(spacing, offset)]
+
+    return tick_spacing
 
 
 def _tick_font():
@@ -101,13 +108,14 @@ class TracePlots(pg.GraphicsLayoutWidget):
         self._y_ranges: dict[str, tuple[float, float]] = {}
         self._no_data: dict[str, pg.TextItem] = {}
         self._cursor_of: dict[str, pg.InfiniteLine] = {}
+        self._retired: list[pg.PlotItem] = []
         for row, key in enumerate(_FIXED):
             self.ci.addItem(self._new_plot(key), row=row, col=0)
         self._mouse_proxy = pg.SignalProxy(self.scene().sigMouseMoved, rateLimit=60, slot=self._on_mouse)
         self._update_axes()
 
     def _new_plot(self, key: str) -> pg.PlotItem:
-        p = pg.PlotItem(axisItems={"left": _SpacedAxis("left")})
+        p = pg.PlotItem()
         p.showGrid(x=True, y=True, alpha=0.25)
         for side in ("left", "bottom"):
             # major ticks only: each grid level costs as much to paint as all the traces
@@ -117,6 +125,8 @@ class TracePlots(pg.GraphicsLayoutWidget):
             axis.setTextPen(theme.PLOT_TEXT)
         p.setMenuEnabled(False)
         p.hideButtons()
+        left = p.getAxis("left")
+        left.tickSpacing = _spaced_ticks(left, left.tickSpacing)
         p.getAxis("left").setWidth(68)
         p.getAxis("left").setStyle(tickFont=_tick_font())
         p.getAxis("left").enableAutoSIPrefix(False)     # "(x0.001)" beside a unit reads as a unit
@@ -211,7 +221,8 @@ class TracePlots(pg.GraphicsLayoutWidget):
         for key in [k for k in self.plots if k.startswith("extra:")]:
             self.ci.removeItem(self.plots[key])
             self.cursor_lines.remove(self._cursor_of.pop(key))
-            del self.plots[key]
+            # kept referenced: freeing a plot item while Qt may still deliver it an event crashes
+            self._retired.append(self.plots.pop(key))
             self._no_data.pop(key, None)
         colour_index = 0
         for row, (unit, members) in enumerate(groups.items(), start=len(_FIXED)):
