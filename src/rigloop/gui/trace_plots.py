@@ -224,6 +224,7 @@ class TracePlots(pg.GraphicsLayoutWidget):
             # kept referenced: freeing a plot item while Qt may still deliver it an event crashes
             self._retired.append(self.plots.pop(key))
             self._no_data.pop(key, None)
+        del self._retired[:-16]         # long out of the scene: these may go
         colour_index = 0
         for row, (unit, members) in enumerate(groups.items(), start=len(_FIXED)):
             key = _extra_key(unit)
