@@ -414,6 +414,8 @@ class MainWindow(QMainWindow):
             final = self.session.close()
             if final:
                 self.last_final = final
+        for plots in (self.live.plots, self.past.plots):
+            plots.shut_down()
         if not getattr(self, "_closed_emitted", False):
             self._closed_emitted = True
             self.closed.emit()

@@ -109,6 +109,7 @@ class TracePlots(pg.GraphicsLayoutWidget):
         self._no_data: dict[str, pg.TextItem] = {}
         self._cursor_of: dict[str, pg.InfiniteLine] = {}
         self._retired: list[pg.PlotItem] = []
+        self.is_shut_down = False
         for row, key in enumerate(_FIXED):
             self.ci.addItem(self._new_plot(key), row=row, col=0)
         self._mouse_proxy = pg.SignalProxy(self.scene().sigMouseMoved, rateLimit=60, slot=self._on_mouse)
@@ -303,11 +304,35 @@ class TracePlots(pg.GraphicsLayoutWidget):
                 (x0, x1), (y0, y1) = self.plots[key].viewRange()
                 label.setPos((x0 + x1) / 2, (y0 + y1) / 2)
 
+    # ------------------------------------------------------------------ end of life
+    def shut_down(self) -> None:
+        """Take the plots apart in pyqtgraph's order (its ``close``), before Qt deletes them.
+
+        Without it, deleting the window can deliver a resize to an axis whose C++ half is
+        already gone, and the process crashes; pyqtgraph's axes skip such late events once
+        closed. Safe to call twice; the widget shows nothing afterwards."""
+        if self.is_shut_down:
+            return
+        self.is_shut_down = True
+        self._mouse_proxy.disconnect()
+        for plot in self.plots.values():
+            if plot.scene() is not None:
+                plot.close()
+        for plot in self._retired:                 # out of the scene: just mute their axes
+            for axis in (plot.axes or {}).values():
+                axis["item"].label = None
+
+    def closeEvent(self, event) -> None:  # noqa: N802 - Qt's name
+        self.shut_down()
+        super().closeEvent(event)
+
     # ------------------------------------------------------------------ data
     def show_rows(self, buf, t_from: float | None = None, t_to: float | None = None,
                   follow: bool = True) -> None:
         """Draw the buffer's rows from ``t_from`` (all rows if None); in follow mode pin the
         x range to [t_from, t_to]. Data are copied: the buffer may move its rows later."""
+        if self.is_shut_down:
+            return
         if len(buf) == 0:
             for curve in self.curves.values():
                 curve.setData([], [])
@@ -370,6 +395,8 @@ class TracePlots(pg.GraphicsLayoutWidget):
     # ------------------------------------------------------------------ markers and cursor
     def add_marker(self, t: float, text: str) -> None:
         """A trip marker: a red line through every plot, labelled in the top one."""
+        if self.is_shut_down:
+            return
         lines = []
         for key, p in self.plots.items():
             opts = {}
