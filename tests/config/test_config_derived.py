@@ -90,8 +90,11 @@ def test_serial_link_budget_and_warning_above_70_percent():
 
 
 def test_window_warnings_at_the_edges():
-    assert "estimator window" in warned(with_values(base(), {"control.estimator.window_s": 0.02}))
-    assert "estimator window" not in warned(with_values(base(), {"control.estimator.window_s": 0.03}))
+    # the shortest window is the one `rigloop identify` never goes below (5 samples at order 1)
+    from rigloop.control.window_choice import shortest_window
+    assert shortest_window("algebraic", 1) == 5
+    assert "estimator window" in warned(with_values(base(), {"control.estimator.window_s": 0.04}))
+    assert "estimator window" not in warned(with_values(base(), {"control.estimator.window_s": 0.05}))
     long = with_values(base(), {"device.rate_hz": 20000, "control.estimator.window_s": 0.2,
                                 "control.kp": 1.0})
     assert figures(long)["estimator window"].value == 4000

@@ -11,6 +11,7 @@ import math
 from typing import NamedTuple
 
 from rigloop.config.model import Config
+from rigloop.control.window_choice import shortest_window
 
 #: Frame sizes from docs/protocol.md: version + type + body + CRC-16.
 SAMPLE_FRAME_FIXED = 27          # 2 + 23 + 2, plus 4 bytes per channel
@@ -95,10 +96,11 @@ def _estimator(cfg: Config, out: list[Derived]) -> None:
                            "window_s is not used)"))
     else:
         n = round(est.window_s * rate)
-        warn = n < WINDOW_SAMPLES_LOW or n > WINDOW_SAMPLES_HIGH
+        low = shortest_window(est.kind, ctl.order)     # the bound `rigloop identify` suggests from
+        warn = n < low or n > WINDOW_SAMPLES_HIGH
         note = f"{est.kind}, {_g(est.window_s * 1000)} ms"
-        if n < WINDOW_SAMPLES_LOW:
-            note += "; very few samples, F is estimated from noise - lengthen window_s"
+        if n < low:
+            note += f"; fewer than {low} samples, F is estimated from noise - lengthen window_s"
         elif n > WINDOW_SAMPLES_HIGH:
             note += ("; long windows cost compute per sample and follow F slowly - shorten "
                      "window_s")
@@ -252,6 +254,33 @@ def _safety(cfg: Config, out: list[Derived]) -> None:
                            "a plan is given: it drives the reference instead of reference:"))
 
 
+def _loosened(cfg: Config, out: list[Derived]) -> None:
+    from rigloop.config.loosened import loosened
+
+    for _label, key, value, message in loosened(cfg):
+        out.append(Derived(key, value, "", message, True))
+
+
+def _recording(cfg: Config, out: list[Derived]) -> None:
+    """The session's expected size on disk against the free space where it will be written."""
+    try:
+        from rigloop.engine.disk_budget import free_bytes, mb, session_budget
+    except ImportError:  # pragma: no cover - the engine is part of the package
+        return
+    budget = session_budget(cfg)
+    free = free_bytes(cfg.recording.dir)
+    note = (f"{budget.rows} rows x {budget.row_bytes} B ({_g(budget.duration_s)} s at "
+            f"{_g(cfg.device.rate_hz)} Hz) + 0.5 MB; ")
+    if free is None:
+        note += f"free space of {cfg.recording.dir} unknown"
+    else:
+        note += f"{mb(free)} free in {cfg.recording.dir}"
+    short = free is not None and free < budget.total_bytes
+    if short:
+        note += "; the run would be refused - free space, record elsewhere or shorten the run"
+    out.append(Derived("recording size", round(budget.total_bytes / 1e6, 3), "MB", note, short))
+
+
 def derived_quantities(cfg: Config) -> list[Derived]:
     """Derived figures of a valid configuration, warnings flagged with ``warning=True``."""
     out: list[Derived] = []
@@ -260,6 +289,8 @@ def derived_quantities(cfg: Config) -> list[Derived]:
     _closed_loop(cfg, out)
     _link(cfg, out)
     _safety(cfg, out)
+    _recording(cfg, out)
+    _loosened(cfg, out)
     return out
 
 
