@@ -668,12 +668,12 @@ def test_suggested_ip_meets_the_fan_plan_and_a_ten_times_alpha_fails_it(fan_iden
     code = main([*base, *sets, "--out", str(tmp_path / "good")])
     out = capsys.readouterr().out
     assert code == 0, out
-    assert "test plan: PASS" in out
+    assert "Test plan 'fan acceptance': PASSED" in out
     bad_alpha = 10 * report["suggestions"]["alpha"]
     code = main([*base, *sets, "--set", f"control.alpha={bad_alpha!r}", "--out", str(tmp_path / "bad")])
     out = capsys.readouterr().out
     assert code == 4, out
-    assert "test plan: FAIL" in out
+    assert "Test plan 'fan acceptance': FAILED" in out
 
 
 def _motor_report(tmp_path, capsys, *extra) -> dict:
