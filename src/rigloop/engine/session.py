@@ -112,7 +112,10 @@ class SessionLifecycle:
         asked = bool(self.cfg.engine.realtime) and self.realtime
         if not self.cfg.engine.realtime:
             obtained, text = "normal", "scheduling: not changed, normal priority (engine.realtime: false)"
+        elif not self.realtime:
+            obtained, text = "normal", "scheduling: not changed, normal priority"
         else:
+            self._priority_before = priority.snapshot()
             obtained, text = priority.request_priority(realtime=asked)
         if self.cfg.engine.realtime and not self.realtime:
             text += " (lockstep simulation: device time is not wall time)"
@@ -276,7 +279,8 @@ class SessionLifecycle:
 
     def status(self) -> dict:
         c = self.link.counters if self.link is not None else None
-        trip = self.trip.as_dict() if self.trip is not None else None
+        # the banner shows the trip latched now, not the session's first one (session.yaml's)
+        trip = self.latched_trip.as_dict() if self.latched_trip is not None else None
         return {
             "state": self.state.value,
             "t": self.t_last,
@@ -298,6 +302,7 @@ class SessionLifecycle:
             "replies": list(self.replies),
             "rate_hz": self.cfg.device.rate_hz,
             "done": self._done,
+            "runs_completed": self.runs_completed,
         }
 
     def _summary(self) -> dict:
@@ -348,6 +353,11 @@ class SessionLifecycle:
             return self.plan_result
 
     def _teardown(self) -> None:
+        if getattr(self, "_priority_before", None) is not None:
+            from rigloop.engine import priority
+
+            priority.restore(self._priority_before)
+            self._priority_before = None
         if self.link is not None:
             try:
                 self.link.close()
