@@ -22,7 +22,7 @@
 #define RIG_CHANNELS 2u        /* speed_rpm, current_a - in this order */
 #define RIG_PERIOD_US 5000u    /* 200 Hz until the host's CONFIGURE */
 #define RIG_WATCHDOG_US 300000u /* until CONFIGURE; the host sets its own */
-#define RIG_MIN_PERIOD_US 500u /* 2 kHz: the loop below takes well under 100 us per tick (measure yours) */
+#define RIG_MIN_PERIOD_US 500u /* 2 kHz: a tick is a few thousand cycles (tens of us at 84 MHz); measure yours */
 #define RIG_MAX_PERIOD_US 1000000u
 
 /* ---- actuator: duty in percent, 0 = off ----------------------------------------------------- */
