@@ -42,6 +42,7 @@ from rigloop.engine.states import State, TransitionRefused, next_state
 from rigloop.engine.supervisor import Supervisor
 from rigloop.engine.timing import LogHistogram
 from rigloop.engine.tunables import TUNABLE_KEYS, control_params_from_config
+from rigloop.link.base import LinkError
 from rigloop.exit_codes import EXIT_INTERNAL, EXIT_OK, EXIT_PLAN_FAILED, EXIT_SIGNAL, EXIT_TRIPPED
 
 log = logging.getLogger("rigloop.engine")
@@ -451,7 +452,10 @@ class Engine:
                     u_cmd = self.safe
                     self.shaper.reset(self.safe)
                 self.cmd_seq = (self.cmd_seq + 1) & 0xFFFFFFFF
-                self.link.send(Command(self.cmd_seq, s.seq, float(u_cmd)))
+                try:
+                    self.link.send(Command(self.cmd_seq, s.seq, float(u_cmd)))
+                except LinkError as exc:  # a link that cannot take a COMMAND is lost: trip, no traceback
+                    self._trip(Trip("link-lost", f"could not send a COMMAND: {exc}", t=t))
                 t_sent = time.perf_counter()
                 self.u_cmd = u_cmd
                 self.last_cmd_t = t
