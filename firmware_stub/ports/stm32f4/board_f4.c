@@ -35,6 +35,9 @@
 #endif
 #define APB1_HZ 42000000u
 #define TIM_PSC_1MHZ (TIMER_CLOCK_HZ / 1000000u - 1u)
+#define RX_LINGER_US 500u /* stay awake this long after a received byte: the rest of the frame
+                             follows at once, and waking per byte costs more than polling (on the
+                             chip a little current; under QEMU a thread hand-over per byte) */
 #define WAKE_MAX_US 60000u /* SysTick reload is 24 bits (99 ms at 168 MHz); a longer wait wakes once more */
 
 #define RX_SIZE 512u  /* power of two: several COMMAND frames at any rate */
@@ -44,6 +47,7 @@ static volatile uint8_t rx_buf[RX_SIZE];
 static volatile uint32_t rx_head; /* written by the interrupt */
 static volatile uint32_t rx_tail; /* written by the main loop */
 static volatile uint32_t rx_lost; /* bytes dropped by the interrupt (ring full or overrun) */
+static volatile uint32_t rx_last_us; /* board_time_us() of the last received byte */
 static uint32_t rx_lost_seen;
 
 static volatile uint8_t tx_buf[TX_SIZE];
@@ -145,6 +149,9 @@ void board_sleep_until(uint32_t deadline_us)
     if (left == 0u || left > 0x80000000u) {
         return; /* due or past */
     }
+    if (board_time_us() - rx_last_us < RX_LINGER_US) {
+        return; /* a frame is arriving: poll instead of sleeping */
+    }
     wait = left < WAKE_MAX_US ? left : WAKE_MAX_US;
     SYST_CSR = 0u;
     SYST_RVR = wait * (CORE_CLOCK_HZ / 1000000u) - 1u;
@@ -176,6 +183,7 @@ void USART2_IRQHandler(void)
             rx_buf[head % RX_SIZE] = byte;
             rx_head = head + 1u;
         }
+        rx_last_us = TIM_CNT(TIM5_BASE);
         sr = USART_SR(USART2_BASE);
     }
     if ((USART_CR1(USART2_BASE) & USART_CR1_TXEIE) != 0u) {
