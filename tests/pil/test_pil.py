@@ -229,3 +229,24 @@ def test_garbage_on_the_uart_is_rejected_and_the_loop_holds(board, tmp_path):
     assert ((run.status & RX_ERROR) != 0).sum() >= 5
     assert ((run.status & (WATCHDOG | STOP_LATCHED)) == 0).all()
     assert np.abs(_settled(run, 9.3, 9.9).e).max() < 0.03 * 1000.0
+
+
+def test_open_loop_bump_test_recovers_the_on_chip_fan(board, tmp_path, capsys):
+    """The bring-up guide's open-loop check (docs/bring-up.md, section 5) against the emulated
+    board: `rigloop identify` steps the duty 30 -> 40 % and fits a first-order model."""
+    import json
+
+    from rigloop.cli import main
+
+    code = main(["identify", str(pil_config(tmp_path, board.pty, "bump")), "--at", "30", "--step", "10",
+                 "--json", "--quiet"])
+    assert code == 0
+    est = json.loads(capsys.readouterr().out)["estimates"]
+    # The on-chip fan is tau * w' = -w + K * u with K = 30 rpm/% and tau = 0.5 s
+    # (ports/stm32f4/rig_io_plant.c); for a first-order lag the step response is
+    # K * du * (1 - exp(-t / tau)) (closed form), so the fit must find K and tau, and the initial
+    # slope per unit input alpha = K / tau = 60 rpm/s per %.
+    assert est["order"] == 1
+    assert est["gain_fit"] == pytest.approx(FAN_GAIN_RPM_PER_PCT, rel=0.05)
+    assert est["tau"] == pytest.approx(0.5, rel=0.10)
+    assert est["alpha_fopdt"] == pytest.approx(FAN_GAIN_RPM_PER_PCT / 0.5, rel=0.10)
