@@ -26,7 +26,7 @@
 #define RIG_MAX_PERIOD_US 1000000u
 
 /* ---- actuator: duty in percent, 0 = off ----------------------------------------------------- */
-#define RIG_PWM_FAN 0   /* 25 kHz PWM for a 4-wire PC fan (Intel 4-wire fan specification: 25 kHz nominal) */
+#define RIG_PWM_FAN 0   /* 25 kHz PWM for a 4-wire PC fan (Intel 4-wire fan specification: 25 kHz nominal; from memory) */
 #define RIG_PWM_SERVO 1 /* 50 Hz hobby servo/ESC pulse: 1000 us (0 %) .. 2000 us (100 %) (common practice) */
 #ifndef RIG_PWM_MODE
 #define RIG_PWM_MODE RIG_PWM_FAN
@@ -39,7 +39,7 @@
 
 /* ---- tachometer ---------------------------------------------------------------------------- */
 #ifndef RIG_TACH_PULSES_PER_REV
-#define RIG_TACH_PULSES_PER_REV 2u /* PC fans: two open-collector pulses per revolution (Intel 4-wire fan spec) */
+#define RIG_TACH_PULSES_PER_REV 2u /* PC fans: two open-collector pulses per revolution (4-wire fan spec; from memory) */
 #endif
 #define RIG_TACH_TIMEOUT_US 500000u /* no edge for 0.5 s -> speed 0 (below 60 rpm at 2 pulses/rev) */
 #define RIG_TACH_FILTER 0xFu        /* input filter: fDTS/32, 8 samples (~3 us at 84 MHz): rejects ringing */
@@ -55,7 +55,7 @@
 #define RIG_UART_BAUD 460800u /* 0.16 % from 42 MHz; carries 1 kHz of 2-channel SAMPLEs (~37 kB/s) */
 
 /* ---- independent hardware watchdog ---------------------------------------------------------- */
-#define RIG_IWDG_PRESCALER_CODE 3u /* LSI / 32: ~1 kHz (LSI is 17..47 kHz over parts and temperature) */
+#define RIG_IWDG_PRESCALER_CODE 3u /* LSI / 32: ~1 kHz (LSI is 17..47 kHz over parts and temperature: F4 datasheets, from memory) */
 #define RIG_IWDG_RELOAD 100u       /* ~100 ms nominal, 68..188 ms over the LSI tolerance */
 
 #endif /* RIG_CONFIG_H */

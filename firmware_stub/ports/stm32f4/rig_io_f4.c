@@ -122,7 +122,7 @@ void rig_io_init(void)
 
     /* Current sense: PA1 analog, ADC1 channel 1, 84-cycle sample time, software start. */
     set_mode(GPIOA_BASE, 1u, 3u);
-    ADC_CCR = ADC_CCR_ADCPRE_DIV4; /* 84 MHz / 4 = 21 MHz ADC clock (max 36 MHz) */
+    ADC_CCR = ADC_CCR_ADCPRE_DIV4; /* 84 MHz / 4 = 21 MHz ADC clock (F4 maximum 36 MHz, from memory) */
     ADC_SMPR2 = 4u << (3u * ADC_CHANNEL);
     ADC_SQR1 = 0u; /* one conversion */
     ADC_SQR3 = ADC_CHANNEL;
