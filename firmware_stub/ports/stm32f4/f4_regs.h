@@ -1,10 +1,13 @@
 /*
  * f4_regs.h - the STM32F4 registers this port touches, and nothing else.
  *
- * Addresses, offsets and bit positions are from the STM32F405/415/407/417/427/437/429/439
+ * Addresses, offsets and bit positions are those of the STM32F405/415/407/417/427/437/429/439
  * reference manual (RM0090) and the STM32F401 reference manual (RM0368); the peripherals used
  * here sit at the same addresses on F401, F405, F411 and F446. Interrupt numbers are the
- * positions in the vector table of those manuals (USART2 also checked under QEMU 7.2).
+ * positions in the vector table of those manuals. Checked: the IWDG keys and prescaler codes
+ * against RM0090 section 21; USART1/USART2, TIM5's counter, SysTick and the USART2 interrupt by
+ * running them under QEMU 7.2's STM32F405. The rest is from memory of those manuals: check a
+ * value against your part's manual before relying on it.
  * Written out by hand so the port needs no vendor header and downloads nothing at build time.
  */
 #ifndef F4_REGS_H
