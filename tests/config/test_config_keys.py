@@ -116,6 +116,8 @@ CASES: dict[str, tuple[str, object, object, dict]] = {
     "recording": ("recording", {"dir": "out"}, "out", {}),
     "recording.dir": ("recording.dir", "out/sessions", 5, {}),
     "recording.flush_ms": ("recording.flush_ms", 50, 0, {}),
+    "engine": ("engine", {"realtime": False}, "fast", {}),
+    "engine.realtime": ("engine.realtime", False, "yes", {}),
     "duration_s": ("duration_s", None, 0, {}),
     "plan": ("plan", PLAN, 3, {}),
 }

@@ -88,4 +88,4 @@ def test_a_device_that_never_answers_is_reported_and_recorded(tmp_path, capsys):
     meta = yaml.safe_load((folder / "session.yaml").read_text())
     assert meta["outcome"] == "stopped" and "could not start" in meta["stop_reason"]
     events = pd.read_csv(folder / "events.csv")
-    assert list(events.kind) == ["link_fault", "ended"]
+    assert list(events.kind) == ["scheduling", "link_fault", "ended"]

@@ -34,17 +34,19 @@ def run(args) -> int:
     cfg = load_config_or_report(args.config, sets)
     if cfg is None:
         return EXIT_USAGE
-    if args.duration is not None and not args.duration > 0:
-        print(f"usage error: --duration {args.duration}: must be a positive number of seconds", file=sys.stderr)
-        return EXIT_USAGE
     return run_headless(cfg, duration_s=args.duration, out_dir=args.out, quiet=args.quiet)
 
 
 def run_headless(cfg, *, duration_s=None, out_dir=None, quiet=False, stream=None) -> int:
     from rigloop.engine.console import ConsoleStatus
     from rigloop.engine.loop import Engine, EngineError
+    from rigloop.engine.session import SessionRefused
 
     stream = stream or sys.stdout
+    problem = duration_problem(duration_s, cfg.limits.max_duration_s)
+    if problem:
+        print(f"usage error: {problem}", file=sys.stderr)
+        return EXIT_USAGE
     engine = Engine(cfg, out_dir=out_dir, duration_s=duration_s, autostart=True, front_end="cli")
     console = None
     if not quiet:
@@ -58,8 +60,17 @@ def run_headless(cfg, *, duration_s=None, out_dir=None, quiet=False, stream=None
     old = {s: signal.signal(s, on_signal) for s in (signal.SIGINT, signal.SIGTERM)}
     try:
         result = engine.run()
+    except SessionRefused as exc:
+        print(f"rigloop run: refused: {exc}", file=sys.stderr)
+        return EXIT_USAGE
     except EngineError as exc:
         print(f"rigloop run: {exc}", file=sys.stderr)
+        if engine.session_dir:
+            print(f"session: {engine.session_dir}", file=sys.stderr)
+        return EXIT_INTERNAL
+    except Exception as exc:  # noqa: BLE001 - the engine has stopped the rig and recorded the trip
+        print(f"rigloop run: internal error ({type(exc).__name__}: {exc}); the rig was stopped and "
+              f"the trip recorded (internal-error); the traceback is in engine.log", file=sys.stderr)
         if engine.session_dir:
             print(f"session: {engine.session_dir}", file=sys.stderr)
         return EXIT_INTERNAL
@@ -70,6 +81,19 @@ def run_headless(cfg, *, duration_s=None, out_dir=None, quiet=False, stream=None
             console.finish()
     print_summary(result, stream)
     return result.exit_code
+
+
+def duration_problem(duration_s, max_duration_s: float) -> str | None:
+    """Why ``--duration`` cannot be used, or None; same rule as ``duration_s`` in the config."""
+    if duration_s is None:
+        return None
+    if not duration_s > 0 or duration_s != duration_s or duration_s == float("inf"):
+        return f"--duration {duration_s}: must be a positive number of seconds"
+    if duration_s > max_duration_s:
+        return (f"--duration {duration_s:g}: longer than limits.max_duration_s ({max_duration_s:g} s), "
+                f"so the run would trip; shorten --duration or raise limits.max_duration_s "
+                f"(--set limits.max_duration_s=...)")
+    return None
 
 
 def print_summary(result, stream) -> None:

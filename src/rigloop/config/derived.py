@@ -252,6 +252,33 @@ def _safety(cfg: Config, out: list[Derived]) -> None:
                            "a plan is given: it drives the reference instead of reference:"))
 
 
+def _loosened(cfg: Config, out: list[Derived]) -> None:
+    from rigloop.config.loosened import loosened
+
+    for _label, key, value, message in loosened(cfg):
+        out.append(Derived(key, value, "", message, True))
+
+
+def _recording(cfg: Config, out: list[Derived]) -> None:
+    """The session's expected size on disk against the free space where it will be written."""
+    try:
+        from rigloop.engine.disk_budget import free_bytes, mb, session_budget
+    except ImportError:  # pragma: no cover - the engine is part of the package
+        return
+    budget = session_budget(cfg)
+    free = free_bytes(cfg.recording.dir)
+    note = (f"{budget.rows} rows x {budget.row_bytes} B ({_g(budget.duration_s)} s at "
+            f"{_g(cfg.device.rate_hz)} Hz) + 0.5 MB; ")
+    if free is None:
+        note += f"free space of {cfg.recording.dir} unknown"
+    else:
+        note += f"{mb(free)} free in {cfg.recording.dir}"
+    short = free is not None and free < budget.total_bytes
+    if short:
+        note += "; the run would be refused - free space, record elsewhere or shorten the run"
+    out.append(Derived("recording size", round(budget.total_bytes / 1e6, 3), "MB", note, short))
+
+
 def derived_quantities(cfg: Config) -> list[Derived]:
     """Derived figures of a valid configuration, warnings flagged with ``warning=True``."""
     out: list[Derived] = []
@@ -260,6 +287,8 @@ def derived_quantities(cfg: Config) -> list[Derived]:
     _closed_loop(cfg, out)
     _link(cfg, out)
     _safety(cfg, out)
+    _recording(cfg, out)
+    _loosened(cfg, out)
     return out
 
 

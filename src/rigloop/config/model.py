@@ -136,6 +136,11 @@ class RecordingConfig:
 
 
 @dataclass(frozen=True)
+class EngineConfig:
+    realtime: bool = True
+
+
+@dataclass(frozen=True)
 class Config:
     rig: str
     device: DeviceConfig
@@ -150,6 +155,7 @@ class Config:
     source_path: Path | None
     base_dir: Path
     raw: dict = field(repr=False)   # the complete, defaulted mapping (session.yaml snapshot)
+    engine: EngineConfig = EngineConfig()
 
     def channel_index(self, name: str) -> int:
         for index, channel in enumerate(self.channels):
@@ -217,4 +223,5 @@ def build_config(root: dict, *, source_path: Path | None, base_dir: Path, url: s
         source_path=source_path,
         base_dir=base_dir,
         raw=root,
+        engine=EngineConfig(**root["engine"]),
     )

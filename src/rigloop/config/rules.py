@@ -7,6 +7,7 @@ also resolve file paths against the config file's folder (they check those files
 
 from __future__ import annotations
 
+import math
 import re
 from collections.abc import Callable, Iterator
 from pathlib import Path
@@ -106,6 +107,25 @@ def channel_names_are_unique_and_free(ctx: RuleContext) -> Iterator[Problem]:
         seen.setdefault(name, index)
 
 
+#: Smallest |channels[].scale|: the device sends raw = (value - offset) / scale as float32, which
+#: overflows (and the link rejects the frame) once a tiny scale blows raw values up.
+CHANNEL_SCALE_MIN = 1e-9
+
+
+@rule
+def channel_scale_is_not_tiny(ctx: RuleContext) -> Iterator[Problem]:
+    channels = get(ctx.root, "channels")
+    if not isinstance(channels, list):
+        return
+    for index, channel in enumerate(channels):
+        scale = channel.get("scale", INVALID) if isinstance(channel, dict) else INVALID
+        if _valid(scale) and abs(scale) < CHANNEL_SCALE_MIN:
+            yield Problem(f"channels.{index}.scale", scale,
+                          f"is smaller than {CHANNEL_SCALE_MIN:g} in size: raw values (value - offset) "
+                          f"/ scale would overflow the wire's float32; use a scale between "
+                          f"{CHANNEL_SCALE_MIN:g} and 1e9 (negative for a reversed sensor)")
+
+
 @rule
 def actuator_range(ctx: RuleContext) -> Iterator[Problem]:
     low, high, safe = (get(ctx.root, f"actuator.{k}") for k in ("min", "max", "safe"))
@@ -138,8 +158,14 @@ def law_matches_order(ctx: RuleContext) -> Iterator[Problem]:
                       f"law of order {order} ({', '.join(others)})")
 
 
+#: Longest window the estimator may hold: past this a window is minutes long (no sane use) and the
+#: per-sample buffers grow without bound; ``rigloop check`` already warns above 2000 samples.
+WINDOW_SAMPLES_MAX = 100_000
+
+
 def _samples(window_s: float, rate_hz: float) -> int:
-    return round(window_s * rate_hz)
+    n = window_s * rate_hz
+    return round(n) if math.isfinite(n) else WINDOW_SAMPLES_MAX + 1
 
 
 @rule
@@ -156,7 +182,17 @@ def windows_hold_enough_samples(ctx: RuleContext) -> Iterator[Problem]:
             yield Problem("control.estimator.window_s", window,
                           f"is {n} sample(s) at {_fmt(rate)} Hz; the {kind} estimator of order "
                           f"{order} needs at least {least} (window_s >= {_fmt(least / rate)})")
+        elif n > WINDOW_SAMPLES_MAX:
+            yield Problem("control.estimator.window_s", window,
+                          f"holds more than {WINDOW_SAMPLES_MAX} samples at {_fmt(rate)} Hz; use "
+                          f"window_s <= {_fmt(WINDOW_SAMPLES_MAX / rate)} (usually 5 to 50 samples)")
+            return
     dwin = get(ctx.root, "control.derivative_window_s")
+    if _valid(dwin) and dwin is not None and _samples(dwin, rate) > WINDOW_SAMPLES_MAX:
+        yield Problem("control.derivative_window_s", dwin,
+                      f"holds more than {WINDOW_SAMPLES_MAX} samples at {_fmt(rate)} Hz; use "
+                      f"<= {_fmt(WINDOW_SAMPLES_MAX / rate)} s, or null for the estimator window")
+        return
     if _valid(dwin) and dwin is not None and _samples(dwin, rate) < 2:
         yield Problem("control.derivative_window_s", dwin,
                       f"is {_samples(dwin, rate)} sample(s) at {_fmt(rate)} Hz; the derivative "
@@ -176,6 +212,9 @@ def controller_builds(ctx: RuleContext) -> Iterator[Problem]:
     control, rate = get(ctx.root, "control"), get(ctx.root, "device.rate_hz")
     if not isinstance(control, dict) or _has_invalid(control) or not _valid(rate):
         return
+    windows = (control["estimator"]["window_s"], control["derivative_window_s"] or 0.0)
+    if any(_samples(w, rate) > WINDOW_SAMPLES_MAX for w in windows):
+        return                              # reported above
     try:
         from rigloop.control.controller import ControlParams
     except ImportError:
@@ -224,6 +263,20 @@ def channel_limits_are_sane(ctx: RuleContext) -> Iterator[Problem]:
             yield Problem(f"limits.{name}", {k: v for k, v in spec.items() if k != "stop"},
                           "guards nothing; give at least one of min, max, rate_max, frozen_s "
                           "(or remove the entry)")
+
+
+@rule
+def recording_dir_is_usable(ctx: RuleContext) -> Iterator[Problem]:
+    """A file where the folder should be, or a place nobody may write: say so before the run."""
+    folder = get(ctx.root, "recording.dir")
+    if not _valid(folder):
+        return
+    from rigloop.engine.disk_budget import recording_dir_problem
+
+    path = Path(folder).expanduser()
+    problem = recording_dir_problem(path if path.is_absolute() else Path.cwd() / path)
+    if problem is not None:
+        yield Problem("recording.dir", folder, problem)
 
 
 @rule

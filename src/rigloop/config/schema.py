@@ -150,6 +150,19 @@ class Integer(ValueType):
 
 
 @dataclass(frozen=True)
+class Flag(ValueType):
+    """true or false (YAML 1.1 also reads yes/no/on/off as these; quoted text is not a flag)."""
+
+    def describe(self) -> str:
+        return "true or false"
+
+    def check(self, value):
+        if isinstance(value, bool):
+            return value, None
+        return None, f"must be {self.describe()}, not {_type_name(value)}"
+
+
+@dataclass(frozen=True)
 class Text(ValueType):
     pattern: str | None = None
     pattern_doc: str = ""
@@ -317,7 +330,7 @@ def is_loopback(host: str) -> bool | None:
 
 
 def _default_watchdog_ms(root: dict) -> float:
-    return min(60000.0, max(100.0, 3000.0 / root["device"]["rate_hz"]))
+    return min(WATCHDOG_MS_MAX, max(100.0, 3000.0 / root["device"]["rate_hz"]))
 
 
 def _default_local_host(root: dict) -> str:
@@ -337,12 +350,28 @@ def _default_blend_s(root: dict) -> object:
 
 
 _LEVEL_KINDS = ("levels", "ramp", "sine", "chirp")
+
+# Hard bounds where no sane use exists (past them a run fails or a protection is void):
+RIG_NAME_MAX = 64              # the session folder name is "<UTC time>_<rig>"; file names stop at 255
+WATCHDOG_MS_MAX = 60000.0      # the rig holds its last command this long if the host dies;
+                               # rigloop check warns far below (config/loosened.py)
+LINK_ERRORS_MAX = 10000        # rejected frames per window: more is no check at all
+OVERRUNS_MAX = 1000000         # late ticks per window (20 kHz x 50 s)
+MAX_DURATION_S_MAX = 604800.0  # one week; a longer unattended run needs its own supervision
+COUNT_WINDOW_S_MAX = 60.0      # a burst window longer than a minute is no burst
+BLEND_S_MIN = 1e-6             # the wire's time resolution (1 us); shorter is a raw step
+CHANNEL_SCALE_MAX = 1e9        # raw values travel as float32: scale and offset keep them finite
+FLOAT32_MAX = 3.4028234663852886e38   # actuator values travel as float32 (CONFIGURE's clamps)
+_WIRE = Number(ge=-FLOAT32_MAX, le=FLOAT32_MAX)
+SIM_NOISE_MAX = 1000.0         # x nominal sensor noise; far past any rig, short of float overflow
+_BLEND = Number(gt=0, ge=BLEND_S_MIN)
 _NUM = Number()
 _POS = Number(gt=0)
 _NONNEG = Number(ge=0)
 
 SCHEMA: tuple[Key, ...] = (
-    Key("rig", Text(r"[A-Za-z0-9_.-]+", "a name of letters, digits, '_', '.' and '-'"), "rig",
+    Key("rig", Text(r"[A-Za-z0-9_.-]{1,%d}" % RIG_NAME_MAX,
+                    f"a name of at most {RIG_NAME_MAX} letters, digits, '_', '.' and '-'"), "rig",
         "rig name, used in session folder names"),
     # ---- device
     Key("device", Section(), {}, "how to reach the device and how it samples"),
@@ -353,7 +382,7 @@ SCHEMA: tuple[Key, ...] = (
         "serial:///dev/ttyACM0?baud=921600, sim://fan; it wins over them", nullable=True),
     Key("device.rate_hz", Number(gt=0, le=20000), 100.0,
         "device sample rate = loop rate [Hz]"),
-    Key("device.watchdog_ms", Number(gt=0, le=60000),
+    Key("device.watchdog_ms", Number(gt=0, le=WATCHDOG_MS_MAX),
         Computed(_default_watchdog_ms, "max(100, 3 sample periods)"),
         "device command watchdog [ms]; no command for this long -> safe output; >= 1 period"),
     Key("device.pacing", Choice(("device", "host")), "device",
@@ -363,7 +392,8 @@ SCHEMA: tuple[Key, ...] = (
     Key("device.sim.clock", Choice(("realtime", "lockstep")), "realtime",
         "realtime: samples on a wall-clock timer; lockstep: next sample as soon as the command "
         "arrives (deterministic, faster than real time)"),
-    Key("device.sim.noise", _NONNEG, 1.0, "sensor noise scale: 0 = none, 1 = nominal"),
+    Key("device.sim.noise", Number(ge=0, le=SIM_NOISE_MAX), 1.0,
+        "sensor noise scale: 0 = none, 1 = nominal"),
     Key("device.sim.seed", Integer(ge=0, le=2**32 - 1), 1, "random seed of noise and faults"),
     Key("device.sim.params", FreeMapping(), {},
         "plant parameter overrides by name (checked against the plant's parameters)"),
@@ -390,14 +420,16 @@ SCHEMA: tuple[Key, ...] = (
     Key("channels[].name", Text(NAME_PATTERN, NAME_DOC), REQUIRED,
         "channel name (a column of samples.csv)"),
     Key("channels[].unit", Text(allow_empty=True), "", "engineering unit, for labels"),
-    Key("channels[].scale", Number(nonzero=True), 1.0, "value = raw * scale + offset"),
-    Key("channels[].offset", _NUM, 0.0, "value = raw * scale + offset"),
+    Key("channels[].scale", Number(ge=-CHANNEL_SCALE_MAX, le=CHANNEL_SCALE_MAX, nonzero=True), 1.0,
+        "value = raw * scale + offset"),
+    Key("channels[].offset", Number(ge=-CHANNEL_SCALE_MAX, le=CHANNEL_SCALE_MAX), 0.0,
+        "value = raw * scale + offset"),
     Key("actuator", Section(), REQUIRED, "the actuator the law drives"),
     Key("actuator.name", Text(NAME_PATTERN, NAME_DOC), "u", "actuator name, for labels"),
     Key("actuator.unit", Text(allow_empty=True), "", "actuator unit"),
-    Key("actuator.min", _NUM, REQUIRED, "lowest command; the host and the device clamp to it"),
-    Key("actuator.max", _NUM, REQUIRED, "highest command; the host and the device clamp to it"),
-    Key("actuator.safe", _NUM, REQUIRED,
+    Key("actuator.min", _WIRE, REQUIRED, "lowest command; the host and the device clamp to it"),
+    Key("actuator.max", _WIRE, REQUIRED, "highest command; the host and the device clamp to it"),
+    Key("actuator.safe", _WIRE, REQUIRED,
         "value commanded when idle, stopped or tripped; min <= safe <= max"),
     Key("actuator.slew_per_s", _POS, None,
         "largest change per second [unit/s]; null = no slew limit", nullable=True),
@@ -431,14 +463,14 @@ SCHEMA: tuple[Key, ...] = (
     Key("reference.kind", Choice(REFERENCE_KINDS), "levels", "profile kind"),
     Key("reference.initial", _NUM, 0.0, "level at t = 0 (levels, ramp); offset (sine, chirp)",
         when=("kind", _LEVEL_KINDS)),
-    Key("reference.blend_s", _POS, Computed(_default_blend_s, "1.0 (table: none)"),
+    Key("reference.blend_s", _BLEND, Computed(_default_blend_s, "1.0 (table: none)"),
         "transition time of blends [s] (levels, ramp); amplitude fade-in (sine, chirp)",
         when=("kind", REFERENCE_KINDS)),
     Key("reference.steps", ListOf(Section()), [], "levels: steps, each {at, to, blend_s?}",
         when=("kind", ("levels",))),
     Key("reference.steps[].at", _NONNEG, REQUIRED, "time the step starts [s]"),
     Key("reference.steps[].to", _NUM, REQUIRED, "level the step blends to"),
-    Key("reference.steps[].blend_s", _POS, OMIT, "this step's blend time [s]; default blend_s"),
+    Key("reference.steps[].blend_s", _BLEND, OMIT, "this step's blend time [s]; default blend_s"),
     Key("reference.start_s", _NONNEG, 0.0, "time the profile starts [s] (ramp, sine, chirp)",
         when=("kind", ("ramp", "sine", "chirp"))),
     Key("reference.rate_per_s", _POS, REQUIRED,
@@ -471,19 +503,24 @@ SCHEMA: tuple[Key, ...] = (
         "immediate: safe value at once; ramped: down at actuator.slew_per_s, then safe"),
     Key("limits.stale_periods", Integer(ge=1, le=100000), 5,
         "trip when no fresh sample arrives for this many periods"),
-    Key("limits.max_duration_s", _POS, 600.0, "trip (ramped stop) when a run lasts longer [s]"),
+    Key("limits.max_duration_s", Number(gt=0, le=MAX_DURATION_S_MAX), 600.0, "trip (ramped stop) when a run lasts longer [s]"),
     Key("limits.link_errors", Section(), {}, "trip on bursts of rejected frames"),
-    Key("limits.link_errors.max", Integer(ge=0), 10, "rejected frames allowed within window_s"),
-    Key("limits.link_errors.window_s", _POS, 1.0, "window for link_errors.max [s]"),
+    Key("limits.link_errors.max", Integer(ge=0, le=LINK_ERRORS_MAX), 10, "rejected frames allowed within window_s"),
+    Key("limits.link_errors.window_s", Number(gt=0, le=COUNT_WINDOW_S_MAX), 1.0, "window for link_errors.max [s]"),
     Key("limits.overruns", Section(), {}, "trip when the host is late too often"),
-    Key("limits.overruns.max", Integer(ge=0), 50, "late ticks allowed within window_s"),
-    Key("limits.overruns.window_s", _POS, 1.0, "window for overruns.max [s]"),
+    Key("limits.overruns.max", Integer(ge=0, le=OVERRUNS_MAX), 50, "late ticks allowed within window_s"),
+    Key("limits.overruns.window_s", Number(gt=0, le=COUNT_WINDOW_S_MAX), 1.0, "window for overruns.max [s]"),
     # ---- recording and run
     Key("recording", Section(), {}, "where and how sessions are written"),
     Key("recording.dir", Text(), "sessions",
         "folder for session folders; a relative path is taken from the current folder"),
     Key("recording.flush_ms", Number(gt=0, le=100), 100.0,
         "longest time rows stay in memory before they are written [ms]"),
+    # ---- the engine process
+    Key("engine", Section(), {}, "how the engine process runs on the host"),
+    Key("engine.realtime", Flag(), True,
+        "ask the OS for real-time scheduling (SCHED_FIFO priority 20, else nice -10) for the "
+        "engine; false = normal priority. What was asked and obtained is printed and recorded"),
     Key("duration_s", _POS, None, "default run length of rigloop run [s]; null = until stopped",
         nullable=True),
     Key("plan", MappingOrPath(), None,

@@ -3,6 +3,10 @@
 PyYAML silently keeps the last of two equal keys and reads ``1e3`` as a string (YAML 1.1 wants
 ``1.0e3``); both have cost people an afternoon, so this loader reports duplicates and accepts the
 exponent form. It also remembers the line of every key so that a problem can say where to look.
+
+Every document is bounded before anything is built from it (:func:`check_bounds`): aliases may
+share a node many times over ("billion laughs"), or point back into themselves (``a: &a [*a]``);
+both are refused with a message instead of eating memory or the stack.
 """
 
 from __future__ import annotations
@@ -22,6 +26,84 @@ class _StrictLoader(yaml.SafeLoader):
 _FLOAT_WITH_EXPONENT = re.compile(r"^[-+]?(?:[0-9][0-9_]*)(?:\.[0-9_]*)?[eE][-+]?[0-9]+$")
 _StrictLoader.add_implicit_resolver("tag:yaml.org,2002:float", _FLOAT_WITH_EXPONENT,
                                     list("-+0123456789"))
+
+
+#: Bounds of a configuration document. A rig config is a few hundred nodes and a few levels deep;
+#: test plans a few thousand nodes. These leave two orders of magnitude of room (common practice
+#: for parser limits) and stop an alias bomb after a bounded amount of work.
+MAX_TEXT_CHARS = 4_000_000
+MAX_EXPANDED_NODES = 200_000
+MAX_DEPTH = 64
+
+
+class DocumentTooLarge(ValueError):
+    """A YAML document beyond the bounds above; the message says which bound and how to fix it."""
+
+
+def check_bounds(node: yaml.Node, *, max_nodes: int = MAX_EXPANDED_NODES,
+                 max_depth: int = MAX_DEPTH) -> int:
+    """Count the nodes of ``node`` as they would be after alias expansion, without expanding.
+
+    Each distinct node is visited once (its expanded size is remembered), so an alias bomb costs
+    time proportional to its text, not to its expansion. Raises :class:`DocumentTooLarge` on an
+    alias that refers to itself, nesting deeper than ``max_depth`` or more than ``max_nodes``
+    expanded nodes; returns the expanded count otherwise.
+    """
+    sizes: dict[int, int] = {}
+    on_path: set[int] = set()
+
+    def size(n: yaml.Node, depth: int) -> int:
+        key = id(n)
+        if key in sizes:
+            return sizes[key]
+        if key in on_path:
+            raise DocumentTooLarge(
+                f"an alias refers to itself (line {n.start_mark.line + 1}): a recursive structure "
+                f"cannot be a configuration; write the values out")
+        if depth > max_depth:
+            raise DocumentTooLarge(
+                f"the document is nested more than {max_depth} levels deep (line {n.start_mark.line + 1}); "
+                f"a configuration needs a handful of levels")
+        total = 1
+        if isinstance(n, (yaml.SequenceNode, yaml.MappingNode)):
+            on_path.add(key)
+            children = n.value if isinstance(n, yaml.SequenceNode) else \
+                [c for pair in n.value for c in pair]
+            for child in children:
+                total += size(child, depth + 1)
+                if total > max_nodes:
+                    raise DocumentTooLarge(
+                        f"the document expands to more than {max_nodes} values (aliases such as *name repeat "
+                        f"whole blocks; line {n.start_mark.line + 1}); a configuration is a few "
+                        f"hundred values - remove the repeated aliases")
+            on_path.discard(key)
+        sizes[key] = total
+        return total
+
+    return size(node, 0)
+
+
+def _compose_bounded(text: str) -> yaml.Node | None:
+    """Compose (no objects built yet) and check the bounds; DocumentTooLarge if out of them."""
+    if len(text) > MAX_TEXT_CHARS:
+        raise DocumentTooLarge(f"the document is {len(text)} characters long, more than {MAX_TEXT_CHARS}; "
+                               f"is this really a configuration?")
+    try:
+        node = yaml.compose(text, Loader=_StrictLoader)
+    except RecursionError:
+        raise DocumentTooLarge(f"the document is nested too deeply to read; a configuration needs a handful "
+                               f"of levels (at most {MAX_DEPTH})") from None
+    if node is not None:
+        check_bounds(node)
+    return node
+
+
+def _construct(node: yaml.Node) -> object:
+    loader = _StrictLoader("")
+    try:
+        return loader.construct_document(node)
+    finally:
+        loader.dispose()
 
 
 def _line_map(node: yaml.Node, prefix: str, source: str, out: dict[str, str],
@@ -66,7 +148,10 @@ def parse_yaml_text(text: str, source: str) -> tuple[object, dict[str, str]]:
     ``locations`` maps dotted key paths to ``"source, line N"``.
     """
     try:
-        node = yaml.compose(text, Loader=_StrictLoader)
+        node = _compose_bounded(text)
+    except DocumentTooLarge as error:
+        raise ConfigError([Problem("", MISSING, f"refused: {error}")], source=source,
+                          locations={"": source}) from None
     except yaml.MarkedYAMLError as error:
         mark = error.problem_mark or error.context_mark
         where = f"{source}, line {mark.line + 1}, column {mark.column + 1}" if mark else source
@@ -85,7 +170,7 @@ def parse_yaml_text(text: str, source: str) -> tuple[object, dict[str, str]]:
     if duplicates:
         raise ConfigError(duplicates, source=source, locations=locations)
     try:
-        data = _StrictLoader(text).get_single_data()
+        data = _construct(node)
     except yaml.YAMLError as error:  # e.g. an unhashable key: composed fine, cannot be built
         raise ConfigError([Problem("", MISSING, f"YAML error: {error}")], source=source,
                           locations={"": source}) from None
@@ -95,7 +180,10 @@ def parse_yaml_text(text: str, source: str) -> tuple[object, dict[str, str]]:
 def parse_yaml_value(text: str) -> object:
     """Parse one ``--set`` value with the same rules as the file; ValueError on bad YAML."""
     try:
-        return yaml.load(text, Loader=_StrictLoader)
+        node = _compose_bounded(text)
+        return None if node is None else _construct(node)
+    except DocumentTooLarge as error:
+        raise ValueError(f"refused: {error}") from None
     except yaml.YAMLError as error:
         problem = getattr(error, "problem", None) or str(error)
         raise ValueError(f"not a valid YAML value ({problem}); quote it if it is text") from None

@@ -1,4 +1,4 @@
-"""The engine loop: connect, supervise, estimate, command, record — at the device's pace.
+"""The engine's sample path: read the link, supervise, estimate, command, record — at the device's pace.
 
 Pacing (design §2): by default the device's sample clock sets the loop. Every SAMPLE is answered
 with one COMMAND; if the host falls behind, every queued sample is still fed to the estimator and
@@ -7,8 +7,8 @@ recorded, and one COMMAND answers the newest (the others count as ``late``). Wit
 
 Safety (design §4, safety.md): a trip is acted on the moment it is decided — the STOP frame is
 written to the link before anything else happens — and is latched until an explicit reset.
-Requests from a front end (e-stop, stop, arm, parameter changes …) arrive through
-:meth:`Engine.request`, which wakes the loop at once, also from a signal handler.
+Front-end requests live in :mod:`.front_end`, the session's set-up and ending in :mod:`.session`;
+this module is what runs once per sample.
 """
 
 from __future__ import annotations
@@ -16,61 +16,31 @@ from __future__ import annotations
 import logging
 import math
 import queue
-from collections import deque
 import select
 import socket
 import sys
 import time
-from dataclasses import dataclass, field
+from collections import deque
 from pathlib import Path
 
-from rigloop.engine.handshake import EngineError, handshake
-from rigloop.engine.records import EventRecord, TickRecord, Trip
-from rigloop.plain_data import plain
-from rigloop.protocol.messages import (
-    Arm,
-    Command,
-    Fault,
-    Hello,
-    Sample,
-    Status,
-    Stop,
-    StopReason,
-)
-from rigloop.engine.recorder import SessionRecorder, make_session_dir, utc_now_iso
-from rigloop.engine.states import State, TransitionRefused, next_state
-from rigloop.engine.supervisor import Supervisor
-from rigloop.engine.timing import LogHistogram
-from rigloop.engine.tunables import TUNABLE_KEYS, control_params_from_config
+from rigloop.engine.front_end import FrontEndRequests, _Request
+from rigloop.engine.handshake import EngineError  # noqa: F401 - public name, imported from here
+from rigloop.engine.records import EventRecord, TickRecord, Trip, num_or_none
+from rigloop.engine.recorder import SessionRecorder, describe_os_error, utc_now_iso
+from rigloop.engine.session import RunResult, SessionLifecycle  # noqa: F401 - RunResult is public here
+from rigloop.engine.states import State, next_state
+from rigloop.engine.tunables import control_params_from_config  # noqa: F401 - imported from here by bench/
 from rigloop.link.base import LinkError
-from rigloop.exit_codes import EXIT_INTERNAL, EXIT_OK, EXIT_PLAN_FAILED, EXIT_SIGNAL, EXIT_TRIPPED
+from rigloop.protocol.messages import Arm, Command, Fault, Hello, Sample, Status, Stop, StopReason
 
 log = logging.getLogger("rigloop.engine")
 
-LOCKSTEP_STALE_FLOOR_S = 0.5   # wall seconds without a sample before a lockstep run trips stale
 ARMED = int(Status.ARMED)      # plain ints on the hot path (IntFlag arithmetic is slow)
 STOP_LATCHED = int(Status.STOP_LATCHED)
 TRIP_TAIL_S = 0.25          # headless runs keep recording this long after a trip (safe rows on record)
 
 
-@dataclass
-class RunResult:
-    outcome: str                      # completed | tripped | stopped
-    exit_code: int
-    session_dir: Path | None
-    trip: Trip | None
-    summary: dict
-    stop_reason: str
-    plan: dict | None = None
-
-
-@dataclass
-class _Request:
-    kind: str
-    args: dict = field(default_factory=dict)
-
-
-class Engine:
+class Engine(SessionLifecycle, FrontEndRequests):
     """One session on one device. Build it, optionally add subscribers, call :meth:`run`."""
 
     def __init__(self, cfg, *, out_dir: Path | str | None = None, link=None, autostart: bool = True,
@@ -116,167 +86,22 @@ class Engine:
         self._ramp_then: str | None = None
         self.plan = cfg.plan
         self.plan_result: dict | None = None
-        self._stop_check: int | None = None
+        self._stop_check: int | None = None   # newest sample seq on the host when STOP went out
+        self._stop_dev_t: float | None = None  # device time STOP left the host (estimate), if known
         self._last_seq = 0
+        self._rx_newest_seq = 0               # newest sample seq received (handled or not)
         self.t_last: float | None = None      # device time of the newest sample (s), None before any
         self._armed_seen = False
         self._arm_wait = 0
         self._status_bits = 0                 # the device's status in its newest sample
         self._wall_minus_perf = time.time() - time.perf_counter()
-
-    # ------------------------------------------------------------------ front-end interface
-    def request(self, kind: str, **args) -> None:
-        """Queue a request and wake the loop at once (safe from signal handlers and threads)."""
-        self._requests.put(_Request(kind, args))
-        try:
-            self._wake_w.send(b"\x01")
-        except (BlockingIOError, OSError):
-            pass
+        self.realtime = True
+        self.scheduling: dict | None = None
+        #: opens the recorder's CSV files (tests inject failing files here); None = plain files
+        self.recorder_opener = None
 
     def add_subscriber(self, sub) -> None:
         self.subscribers.append(sub)
-
-    # ------------------------------------------------------------------ set-up
-    def _setup_session(self) -> None:
-        self.session_dir = make_session_dir(self.out_dir, self.cfg.rig)
-        handler = logging.FileHandler(self.session_dir / "engine.log", encoding="utf-8")
-        handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(message)s"))
-        log.addHandler(handler)
-        log.setLevel(logging.INFO)
-        self._log_handler = handler
-
-    def _open_link(self):
-        cfg = self.cfg
-        if self.link is not None:
-            return getattr(self.link, "url", "custom link")
-        if cfg.device.link == "sim":
-            from rigloop.sim.launcher import start_sim
-
-            self.sim = start_sim(cfg, **self.sim_extra)
-            from rigloop.link.udp import UdpLink
-
-            self.link = UdpLink(self.sim.host, self.sim.port)
-            log.info("simulated device started: %s (plant %s, clock %s)", self.sim.url,
-                     cfg.device.sim.plant, cfg.device.sim.clock)
-            return f"sim://{cfg.device.sim.plant}"
-        from rigloop.link import open_link
-
-        self.link = open_link(cfg.device)
-        return self.link.url
-
-    def _handshake(self) -> None:
-        self.hello = handshake(self.link, self.cfg)
-        h = self.hello
-        info = {"fw_version": h.fw_version, "n_channels": h.n_channels, "period_us": h.period_us,
-                "watchdog_us": h.watchdog_us, "safe": h.safe, "u_min": h.u_min, "u_max": h.u_max, "name": h.name}
-        if self.recorder:
-            self.recorder.set_device_hello(info)
-        log.info("device %r configured: %s", h.name, info)
-
-    # ------------------------------------------------------------------ main entry
-    def run(self) -> RunResult:
-        from rigloop.control.controller import Controller
-        from rigloop.control.reference import build_reference
-        from rigloop.control.shaping import ActuatorShaper
-        from rigloop.engine.priority import raise_priority
-
-        cfg = self.cfg
-        self._setup_session()
-        url = "?"
-        try:
-            url = self._open_link()
-            self.recorder = SessionRecorder(self.session_dir, cfg, device_url=url)
-            self.subscribers.insert(0, self.recorder)
-            realtime = not (cfg.device.link == "sim" and cfg.device.sim.clock == "lockstep")
-            self.realtime = realtime
-            log.info("rigloop engine for rig %r, link %s, %g Hz, pacing %s", cfg.rig, url,
-                     cfg.device.rate_hz, cfg.device.pacing)
-            log.info(raise_priority(realtime=realtime))
-            self._handshake()
-        except Exception as exc:
-            msg = str(exc) if isinstance(exc, EngineError) else f"{type(exc).__name__}: {exc}"
-            log.error("could not start: %s", msg)
-            self._emit(EventRecord("link_fault", f"could not start: {msg}"))
-            self.stop_reason = f"could not start: {msg}"
-            self.outcome = "stopped"
-            self._finish_files({})
-            self._teardown()
-            raise EngineError(msg) from exc
-
-        self.period = 1.0 / cfg.device.rate_hz
-        self.scales = [(c.scale, c.offset) for c in cfg.channels]
-        self.out_idx = cfg.channel_index(cfg.control.output)
-        a = cfg.actuator
-        self.safe = float(a.safe)
-        self.shaper = ActuatorShaper(a.min, a.max, a.safe, a.slew_per_s)
-        self.shaper.reset(self.safe)
-        self.ramp_rate = a.slew_per_s if a.slew_per_s else (a.max - a.min)  # per second
-        self.params = control_params_from_config(cfg)
-        self.controller = Controller(self.params, ts=self.period, u_min=a.min, u_max=a.max, u_hold=self.safe)
-        if self.plan:
-            from rigloop.analysis.plan import plan_duration, plan_reference_spec
-
-            self.ref_spec = plan_reference_spec(self.plan)
-            if not self._duration_given:
-                self.duration_s = plan_duration(self.plan)
-        else:
-            self.ref_spec = cfg.reference
-        self.reference = build_reference(self.ref_spec, base_dir=cfg.base_dir)
-        self.ref_origin = 0.0
-        self.supervisor = Supervisor(cfg)
-        if not self.realtime:
-            # Lockstep: device time is not wall time, and a simulated device descheduled for a
-            # moment on a busy machine is not a dead link. Keep at least LOCKSTEP_STALE_FLOOR_S.
-            self.supervisor.stale_s = max(self.supervisor.stale_s, LOCKSTEP_STALE_FLOOR_S)
-        self.lat_hist = LogHistogram()
-        self.comp_hist = LogHistogram()
-        self.lateness_hist = LogHistogram()
-        self.n_samples = 0
-        self.n_running = 0
-        self.n_err = 0
-        self.sum_e2 = 0.0
-        self.max_abs_e = 0.0
-        self.late_ticks = 0
-        self.cmd_seq = 0
-        self.u_cmd = self.safe
-        self.t0_us = None
-        self.run_t0 = None          # device time (s) of the first running sample
-        self.t_last = None
-        self.last_cmd_t = None
-        self.min_offset = None
-        self.last_sample_host = time.perf_counter()
-        self.last_front_end = time.perf_counter()
-        self._last_status = 0.0
-        self._transition("connected")
-        self._emit(EventRecord("connected", f"{url} device {self.hello.name!r}"))
-        if self.autostart:
-            self._arm("autostart")
-        try:
-            self._loop()
-        except Exception as exc:  # the safety path fails loudly: stop the rig, then report
-            log.exception("internal error")
-            self._trip(Trip("internal-error", f"{type(exc).__name__}: {exc}", t=self.t_last))
-            self.outcome = "tripped"
-            self.stop_reason = f"internal error: {exc}"
-            self._finish_files(self._summary())
-            self._teardown()
-            raise
-        summary = self._summary()
-        self._finish_files(summary)
-        self._teardown()
-        return RunResult(self.outcome, self._exit_code(), self.session_dir, self.trip, summary,
-                         self.stop_reason, self.plan_result)
-
-    def _exit_code(self) -> int:
-        if self.outcome == "completed":
-            if self.plan_result is not None and not self.plan_result.get("passed", True):
-                return EXIT_PLAN_FAILED
-            return EXIT_OK
-        if self.outcome == "tripped":
-            return EXIT_TRIPPED
-        if self._signal_stop:
-            return EXIT_SIGNAL
-        return EXIT_OK if self.outcome == "stopped" else EXIT_INTERNAL
 
     # ------------------------------------------------------------------ the loop
     def _loop(self) -> None:
@@ -349,6 +174,10 @@ class Engine:
         return t if t <= t_arrival else t_arrival
 
     def _route(self, msgs) -> list:
+        for m in reversed(msgs):   # before any FAULT in this read trips: these samples predate STOP
+            if isinstance(m, Sample):
+                self._rx_newest_seq = m.seq
+                break
         samples = []
         for m in msgs:
             if isinstance(m, Sample):
@@ -403,7 +232,7 @@ class Engine:
             y = values[self.out_idx]
             self._status_bits = s.status
             self._last_seq = s.seq
-            if self._stop_check is not None and ((s.seq - self._stop_check) & 0xFFFFFFFF) >= 2:
+            if self._stop_check is not None and self._sent_after_stop(s.seq, t):
                 self._confirm_stop(t, s.status)
             running = self.state is State.RUNNING
             trip = self._check_arm_confirmed(t, s.status) \
@@ -505,10 +334,28 @@ class Engine:
         """Write STOP to the wire now and remember to check that the device latched it."""
 
         self.link.send(Stop(reason))
-        self._stop_check = self._last_seq
+        # Judge only samples the device sent after it could have seen this STOP: not those
+        # already received (a frozen host reads a backlog of ARMED samples together with the
+        # watchdog FAULT), nor - on a real-time clock - those the device sent while the host was
+        # not reading: the device's clock ran on by the wall time since the newest sample came.
+        self._stop_check = self._rx_newest_seq
+        if self.realtime and self.t_last is not None:
+            self._stop_dev_t = self.t_last + max(0.0, time.perf_counter() - self.last_sample_host)
+        else:
+            self._stop_dev_t = None
+
+    def _sent_after_stop(self, seq: int, t: float) -> bool:
+        """True when sample ``seq`` (device time ``t``) left the device after STOP reached it:
+        two sequence numbers past the newest sample received when STOP went out (one may be in
+        flight) and, on a real-time clock, a period past STOP's estimated device time."""
+        ahead = (seq - self._stop_check) & 0xFFFFFFFF
+        if ahead < 2 or ahead >= 1 << 31:
+            return False
+        return self._stop_dev_t is None or t >= self._stop_dev_t + self.period
 
     def _confirm_stop(self, t: float, status: int) -> None:
         self._stop_check = None
+        self._stop_dev_t = None
         if status & ARMED and not status & STOP_LATCHED:
             self._emit(EventRecord(
                 "warning", "the device did not latch STOP (still ARMED, no STOP_LATCHED); it may ignore STOP — "
@@ -590,7 +437,7 @@ class Engine:
             self.state = State.STOPPING
             log.warning("trip (ramped stop): %s", trip.message)
             self._emit(EventRecord("trip", f"{trip.cause}: {trip.message} (ramped stop)", t=trip.t,
-                                   value=_num(trip.value), limit=_num(trip.limit)))
+                                   value=num_or_none(trip.value), limit=num_or_none(trip.limit)))
             return
         if self.state is State.STOPPING and self.pending_trip is not None and trip.stop == "ramped":
             return
@@ -605,7 +452,7 @@ class Engine:
         self.state = next_state(self.state, "trip")
         log.warning("TRIP (%s stop): %s", trip.stop, trip.message)
         self._emit(EventRecord("trip", f"{trip.cause}: {trip.message}", t=trip.t,
-                               value=_num(trip.value), limit=_num(trip.limit)))
+                               value=num_or_none(trip.value), limit=num_or_none(trip.limit)))
         if self.exit_after_trip:
             base = self.t_last if self.t_last is not None else 0.0
             self._tail_until = base + TRIP_TAIL_S
@@ -631,181 +478,12 @@ class Engine:
         self.ref_origin = 0.0
         self._emit(EventRecord("armed", f"armed ({source})", t=self.t_last))
 
-    def _drain_requests(self) -> None:
-        while True:
-            try:
-                req = self._requests.get_nowait()
-            except queue.Empty:
-                return
-            try:
-                self._handle_request(req)
-            except TransitionRefused as exc:
-                self._reply(req, False, str(exc))
-
-    def _reply(self, req: _Request, ok: bool, message: str) -> None:
-        self.last_reply = {"id": req.args.get("id"), "kind": req.kind, "ok": ok, "message": message}
-        self.replies.append(self.last_reply)
-        if not ok:
-            log.info("request %s refused: %s", req.kind, message)
-
-    def _handle_request(self, req: _Request) -> None:
-        k = req.kind
-        a = req.args
-        if k == "estop":
-            src = a.get("source", self.front_end)
-            self._signal_stop = self._signal_stop or bool(a.get("signal"))
-            if self.state is State.TRIPPED:
-                self._send_stop(StopReason.ESTOP)
-                self._emit(EventRecord("estop", f"e-stop ({src}) while already tripped; STOP re-sent", t=self.t_last))
-            else:
-                self._trip(Trip("e-stop", f"operator e-stop ({src})", t=self.t_last))   # the wire first
-                self._emit(EventRecord("estop", f"e-stop ({src})", t=self.t_last))
-            self.stop_reason = self.stop_reason or f"operator e-stop ({src})"
-            self._reply(req, True, "e-stop sent")
-        elif k == "stop":
-            self._transition("stop")
-            self._send_stop(StopReason.OPERATOR)
-            self.u_cmd = self.safe
-            self.shaper.reset(self.safe)
-            self._ramp_then = None
-            self.pending_trip = None
-            self._emit(EventRecord("stop", f"stop ({a.get('source', self.front_end)}): safe output at once", t=self.t_last))
-            self._reply(req, True, "stopped")
-        elif k == "ramp_down":
-            self.stop_reason = a.get("reason", "operator ramp-down")
-            self._ramp_down(then=a.get("then"))
-            self._reply(req, True, "ramping down")
-        elif k == "arm":
-            if self.state is State.TRIPPED:
-                raise TransitionRefused("the rig is tripped: reset first, then arm")
-            self._arm(a.get("source", self.front_end))
-            self._reply(req, True, "armed")
-        elif k == "reset":
-            self._transition("reset")
-            self._emit(EventRecord("reset", "trip reset by the operator; output stays safe until armed", t=self.t_last))
-            self._tail_until = None
-            self._reply(req, True, "reset")
-        elif k == "set":
-            self._set_param(req)
-        elif k == "setpoint":
-            self._set_setpoint(req)
-        elif k == "profile":
-            self._start_profile(req)
-        elif k == "quit":
-            self.stop_reason = self.stop_reason or a.get("reason", "operator quit")
-            if self.state is State.RUNNING:
-                self._ramp_down(then="quit")
-            elif self.state is State.STOPPING:
-                self._ramp_then = "quit"
-            else:
-                self._done = True
-            self._reply(req, True, "quitting")
-        elif k == "ping":
-            pass
-        else:
-            self._reply(req, False, f"unknown request {k!r}")
-
-    def _set_param(self, req: _Request) -> None:
-        from rigloop.config import ConfigError, apply_overrides, parse_config
-
-        key = req.args["key"]
-        value = req.args["value"]
-        if key not in TUNABLE_KEYS:
-            self._reply(req, False, f"{key} cannot be changed while running; tunable: {', '.join(TUNABLE_KEYS)}")
-            return
-        try:
-            import yaml
-
-            text = value if isinstance(value, str) else yaml.safe_dump(value).strip().removesuffix("...").strip()
-            raw = apply_overrides(self.cfg.raw, [f"{key}={text}"])
-            new_cfg = parse_config(raw, base_dir=self.cfg.base_dir, source="live change")
-        except ConfigError as exc:
-            self._reply(req, False, "; ".join(f"{p.key}: {p.message}" for p in exc.problems))
-            return
-        except ValueError as exc:
-            self._reply(req, False, str(exc))
-            return
-        new_params = control_params_from_config(new_cfg)
-        changes = {f: getattr(new_params, f) for f in TUNABLE_KEYS.values()
-                   if getattr(new_params, f) != getattr(self.params, f)}
-        old = {f: getattr(self.params, f) for f in changes}
-        try:
-            if changes:
-                self.controller.update_params(**changes)
-        except ValueError as exc:
-            self._reply(req, False, str(exc))
-            return
-        self.cfg = new_cfg
-        self.params = new_params
-        detail = ", ".join(f"{f}={changes[f]!r} (was {old[f]!r})" for f in changes) or f"{key} unchanged"
-        num = _num(changes[TUNABLE_KEYS[key]]) if TUNABLE_KEYS[key] in changes else None
-        self._emit(EventRecord("param", f"{key}: {detail}", t=self.t_last, value=num if isinstance(num, float) else None))
-        self._reply(req, True, detail)
-
     def _t_rel_now(self) -> float:
         if self.run_t0 is None or self.t_last is None:
             return 0.0
         return self.t_last - self.run_t0
 
-    def _set_setpoint(self, req: _Request) -> None:
-        from rigloop.control.reference import with_setpoint
-
-        level = float(req.args["level"])
-        blend = float(req.args.get("blend_s", 1.0))
-        lim = self.cfg.limits.channels.get(self.cfg.control.output)
-        if lim is not None and ((lim.max is not None and level > lim.max) or (lim.min is not None and level < lim.min)):
-            self._reply(req, False, f"setpoint {level:g} lies outside the limits of {self.cfg.control.output} "
-                                    f"[{lim.min}, {lim.max}]")
-            return
-        if not (math.isfinite(level) and math.isfinite(blend) and blend > 0):
-            self._reply(req, False, "setpoint and blend time must be finite numbers, blend_s > 0 "
-                                    "(a raw step has an infinite derivative)")
-            return
-        t_now = self._t_rel_now() - self.ref_origin
-        try:
-            self.reference = with_setpoint(self.reference, t_now, level, blend)
-        except ValueError as exc:
-            self._reply(req, False, str(exc))
-            return
-        self._emit(EventRecord("setpoint", f"blend_s={blend:g}", t=self.t_last, value=level))
-        self._reply(req, True, f"setpoint {level:g} over {blend:g} s")
-
-    def _start_profile(self, req: _Request) -> None:
-        from rigloop.control.reference import build_reference
-
-        self.reference = build_reference(self.ref_spec, base_dir=self.cfg.base_dir)
-        self.ref_origin = self._t_rel_now()
-        self._emit(EventRecord("profile", f"reference profile '{self.ref_spec.get('kind')}' restarted",
-                               t=self.t_last))
-        self._reply(req, True, "profile started")
-
     # ------------------------------------------------------------------ periodic work
-    def _read_front_end(self) -> None:
-        conn = self.control_conn
-        if conn is None:
-            return
-        try:
-            while conn.poll():
-                kind, args = conn.recv()
-                self.last_front_end = time.perf_counter()
-                self.request(kind, **args)
-        except (EOFError, OSError):
-            self.control_conn = None
-            self._front_end_lost("the front end closed its connection")
-
-    def _front_end_lost(self, why: str) -> None:
-        self.front_end_timeout_s = None
-        log.warning("front end lost: %s", why)
-        self.stop_reason = "front end lost"
-        if self.state in (State.RUNNING, State.STOPPING):
-            self._trip(Trip("front-end-lost", f"front end lost ({why}); controlled stop", t=self.t_last, stop="ramped"))
-            self.exit_after_trip = True
-        else:
-            if self.state is not State.TRIPPED:
-                self._trip(Trip("front-end-lost", f"front end lost ({why})", t=self.t_last))
-            self._done = True
-        self._ramp_then = "quit"
-
     def _periodic(self, now: float) -> None:
         if self.state is not State.DISCONNECTED and not self._done:
             trip = self.supervisor.check_stale(self.t_last, now - self.last_sample_host)
@@ -856,101 +534,10 @@ class Engine:
     def _subscriber_failed(self, sub, exc: Exception) -> None:
         if getattr(sub, "critical", False):
             self.subscribers.remove(sub)
-            log.error("recorder failed: %s", exc)
-            self._trip(Trip("recorder-failed", f"the recorder failed ({exc}); stopping rather than running unrecorded",
-                            t=self.t_last))
+            why = describe_os_error(exc) if isinstance(exc, OSError) else f"{type(exc).__name__}: {exc}"
+            self._trip(Trip("recorder-failed", f"the recorder could not write ({why}); stopped rather "
+                                               f"than running unrecorded", t=self.t_last))   # STOP first
+            log.error("recorder failed: %s", why)
         else:
             log.warning("display subscriber %r failed: %s (removed)", sub, exc)
             self.subscribers.remove(sub)
-
-    # ------------------------------------------------------------------ status and summary
-    def status(self) -> dict:
-        c = self.link.counters if self.link is not None else None
-        trip = self.trip.as_dict() if self.trip is not None else None
-        return {
-            "state": self.state.value,
-            "t": self.t_last,
-            "trip": trip if self.state in (State.TRIPPED, State.STOPPING) else None,
-            "last_trip": trip,
-            "session_dir": str(self.session_dir) if self.session_dir else None,
-            "samples": self.n_samples,
-            "lost_samples": c.lost_samples if c else 0,
-            "rejected": c.rejected.as_dict() if c else {},
-            "latency_ms": self.lat_hist.summary(1e3),
-            "lateness_ms": self.lateness_hist.summary(1e3),
-            "compute_us": self.comp_hist.summary(1e6, 1),
-            "late_ticks": self.late_ticks,
-            "margins": self.supervisor.margins(),
-            "device_status": self._status_bits,
-            "params": {k: getattr(self.params, f) for k, f in TUNABLE_KEYS.items()},
-            "reply": self.last_reply,
-            "replies": list(self.replies),
-            "rate_hz": self.cfg.device.rate_hz,
-            "done": self._done,
-        }
-
-    def _summary(self) -> dict:
-        c = self.link.counters if self.link is not None else None
-        n = self.n_running
-        return {
-            "samples": self.n_samples,
-            "running_samples": n,
-            "duration_s": round(self._t_rel_now(), 6),
-            "rms_error": math.sqrt(self.sum_e2 / self.n_err) if self.n_err else None,
-            "max_abs_error": self.max_abs_e if self.n_err else None,
-            "lost_samples": c.lost_samples if c else 0,
-            "rejected_frames": c.rejected.as_dict() if c else {},
-            "late_ticks": self.late_ticks,
-            "latency_ms": self.lat_hist.summary(1e3),
-            "lateness_ms": self.lateness_hist.summary(1e3),
-            "compute_us": self.comp_hist.summary(1e6, 1),
-        }
-
-    def _finish_files(self, summary: dict) -> None:
-        if self.outcome == "running":          # not completed: an operator e-stop is a stop, not a trip
-            self.outcome = "tripped" if self.trip is not None and self.trip.cause != "e-stop" else "stopped"
-        if self.trip is not None and not self.stop_reason:
-            self.stop_reason = self.trip.message
-        self._emit(EventRecord("ended", f"outcome {self.outcome}: {self.stop_reason}", t=self.t_last))
-        if self.recorder is not None:
-            self.recorder.close(outcome=self.outcome, stop_reason=self.stop_reason,
-                                trip=self.trip.as_dict() if self.trip else None, summary=plain(summary))
-            if self.plan:
-                self.recorder.update_meta(plan=self._evaluate_plan())
-
-    def _evaluate_plan(self) -> dict:
-        try:
-            from rigloop.analysis.plan import evaluate_plan
-            from rigloop.analysis.session import load_session
-
-            result = evaluate_plan(self.plan, load_session(self.session_dir))
-            self.plan_result = result.as_dict()
-            return self.plan_result
-        except Exception as exc:  # noqa: BLE001 - a plan verdict never hides the recording
-            log.exception("plan evaluation failed")
-            self.plan_result = {"passed": False, "error": str(exc), "criteria": []}
-            return self.plan_result
-
-    def _teardown(self) -> None:
-        if self.link is not None:
-            try:
-                self.link.close()
-            except Exception:  # noqa: BLE001
-                pass
-        if self.sim is not None:
-            self.sim.stop()
-        for s in (self._wake_r, self._wake_w):
-            s.close()
-        if self._log_handler is not None:
-            log.removeHandler(self._log_handler)
-            self._log_handler.close()
-
-
-def _num(x):
-    if x is None:
-        return None
-    try:
-        return float(x)
-    except (TypeError, ValueError):
-        return None
-

@@ -14,6 +14,20 @@ import sys
 
 def raise_priority(realtime: bool = True) -> str:
     """Try to raise this process's priority; return a sentence for the log."""
+    return request_priority(realtime)[1]
+
+
+def request_priority(realtime: bool = True) -> tuple[str, str]:
+    """Try to raise this process's priority; return (what was obtained, a sentence for the log).
+    "What was obtained" is ``SCHED_FIFO 20``, ``nice -10``, ``HIGH_PRIORITY_CLASS`` or ``normal``."""
+    text = _raise(realtime)
+    if " obtained" not in text:
+        return "normal", text
+    granted = text.removeprefix("scheduling: ").rsplit(" obtained", 1)[0].rsplit("; ", 1)[-1]
+    return granted.replace(" priority", ""), text
+
+
+def _raise(realtime: bool) -> str:
     if realtime and hasattr(os, "sched_setscheduler") and hasattr(os, "SCHED_FIFO"):
         try:
             prio = min(20, os.sched_get_priority_max(os.SCHED_FIFO))

@@ -4,11 +4,16 @@ Rows are buffered and flushed at least every ``recording.flush_ms`` (<= 100 ms) 
 the end, so a crash loses at most the last flush and leaves ``outcome: running`` behind. Nothing
 is kept in memory beyond the write buffer, so hour-long sessions stay flat. The recorder is a
 *critical* subscriber: if it cannot write, the engine trips the rig instead of running blind.
+
+A full disk, a permission change or a removed medium must not lose the record of how the session
+ended (:mod:`.durable_files`): CSV files only ever hold whole rows, and ``session.yaml`` owns its
+final size from the start, so the outcome and the trip can still be written.
 """
 
 from __future__ import annotations
 
 import csv
+import errno
 import math
 import os
 import platform
@@ -20,11 +25,17 @@ import numpy as np
 import yaml
 
 from rigloop import __version__
+from rigloop.engine.durable_files import ReservedTextFile, RowFile
 from rigloop.engine.records import EventRecord, TickRecord
 
 SAMPLE_COLUMNS_HEAD = ("t", "seq", "ref", "dref", "y", "e", "u_cmd", "u", "f_hat", "state")
 SAMPLE_COLUMNS_TAIL = ("status", "latency_ms", "compute_us", "late")
 EVENT_COLUMNS = ("t", "wall_utc", "kind", "detail", "value", "limit")
+
+
+def sample_row_format(n_channels: int) -> str:
+    """The %-format of one samples.csv row with ``n_channels`` channel columns."""
+    return "%.6f,%d,%.9g,%.9g,%.9g,%.9g,%.9g,%.9g,%.9g,%s," + "%.9g," * n_channels + "%d,%.4f,%.1f,%d\n"
 
 
 def utc_now_iso() -> str:
@@ -67,6 +78,10 @@ def _yaml_safe(obj):
     return obj
 
 
+def yaml_text(data: dict) -> str:
+    return yaml.safe_dump(_yaml_safe(data), sort_keys=False, allow_unicode=True)
+
+
 def write_yaml_atomic(path: Path, data: dict) -> None:
     tmp = path.with_suffix(".yaml.tmp")
     with open(tmp, "w", encoding="utf-8") as fh:
@@ -76,10 +91,18 @@ def write_yaml_atomic(path: Path, data: dict) -> None:
     os.replace(tmp, path)
 
 
+class _RowSink:
+    """What csv.writer writes to: whole rows into a RowFile."""
+
+    def __init__(self, rows: RowFile):
+        self.write = rows.add
+
+
 class SessionRecorder:
     critical = True
 
-    def __init__(self, folder: Path, cfg, *, device_url: str, flush_ms: float | None = None):
+    def __init__(self, folder: Path, cfg, *, device_url: str, flush_ms: float | None = None,
+                 opener=None):
         self.folder = Path(folder)
         self.cfg = cfg
         self.channel_names = [c.name for c in cfg.channels]
@@ -101,25 +124,33 @@ class SessionRecorder:
             "plan": None,
             "config": cfg.raw,
         }
-        write_yaml_atomic(self.folder / "session.yaml", self.meta)
-        self._samples = open(self.folder / "samples.csv", "w", encoding="utf-8", newline="", buffering=1 << 16)
-        self._events_fh = open(self.folder / "events.csv", "w", encoding="utf-8", newline="", buffering=1 << 14)
-        self._events = csv.writer(self._events_fh, lineterminator="\n")
+        self._failure: OSError | None = None
+        self.meta_error: OSError | None = None
+        self._meta_file = ReservedTextFile(self.folder / "session.yaml", yaml_text(self.meta))
+        self._samples = RowFile(self.folder / "samples.csv", opener)
+        self._events_rows = RowFile(self.folder / "events.csv", opener)
+        self._events = csv.writer(_RowSink(self._events_rows), lineterminator="\n")
         header = list(SAMPLE_COLUMNS_HEAD) + self.channel_names + list(SAMPLE_COLUMNS_TAIL)
-        self._samples.write(",".join(header) + "\n")
+        self._samples.add(",".join(header) + "\n")
         self._events.writerow(EVENT_COLUMNS)
-        n = len(self.channel_names)
-        self._fmt = ("%.6f,%d,%.9g,%.9g,%.9g,%.9g,%.9g,%.9g,%.9g,%s," + "%.9g," * n + "%d,%.4f,%.1f,%d\n")
+        self._fmt = sample_row_format(len(self.channel_names))
+        self._add_row = self._samples.add
+        self.flush()                        # the headers are on disk before the first sample
         self._last_flush = time.monotonic()
         self.rows = 0
         self.closed = False
 
+    @property
+    def failure(self) -> OSError | None:
+        """The first write error of either file (from a flush, or from a write a full buffer
+        started inside on_tick), else None."""
+        return self._failure or self._samples.failed or self._events_rows.failed
+
     def set_device_hello(self, hello: dict) -> None:
-        self.meta["device"]["hello"] = hello
-        write_yaml_atomic(self.folder / "session.yaml", self.meta)
+        self.update_meta(device={**self.meta["device"], "hello": hello})
 
     def on_tick(self, r: TickRecord) -> None:
-        self._samples.write(self._fmt % (
+        self._add_row(self._fmt % (
             r.t, r.seq, r.ref, r.dref, r.y, r.e, r.u_cmd, r.u, r.f_hat, r.state, *r.channels,
             r.status, r.latency_ms, r.compute_us, r.late))
         self.rows += 1
@@ -135,30 +166,52 @@ class SessionRecorder:
             self.flush()
 
     def flush(self) -> None:
-        self._samples.flush()
-        self._events_fh.flush()
+        """Write the collected rows; an OSError (disk full, medium gone …) is raised once, after
+        both files are cut back to their last whole row."""
         self._last_flush = time.monotonic()
+        if self.failure is not None:
+            raise self.failure              # stays failed: the engine drops it on the first raise
+        for rows in (self._samples, self._events_rows):
+            try:
+                rows.flush()
+            except OSError as exc:
+                self._failure = self._failure or exc
+                raise                       # at once: the engine stops the rig before anything else
 
     def close(self, *, outcome: str, stop_reason: str | None, trip: dict | None, summary: dict,
               plan: dict | None = None) -> None:
+        """Finish both CSV files and write the outcome. Never raises: a recording that cannot be
+        finished is described in session.yaml (``recording_error``) when at all possible."""
         if self.closed:
             return
         self.closed = True
-        for fh in (self._samples, self._events_fh):
+        for rows in (self._samples, self._events_rows):
             try:
-                fh.flush()
-                os.fsync(fh.fileno())
-            finally:
-                fh.close()
+                rows.close()
+            except OSError as exc:
+                self._failure = self._failure or exc
         self.meta.update(outcome=outcome, stop_reason=stop_reason, trip=trip, summary=summary,
                          ended_utc=utc_now_iso())
+        if self.failure is not None:
+            self.meta["recording_error"] = describe_os_error(self.failure)
         if plan is not None:
             self.meta["plan"] = plan
-        write_yaml_atomic(self.folder / "session.yaml", self.meta)
+        self.update_meta()
 
     def update_meta(self, **fields) -> None:
+        """Rewrite session.yaml (in place if need be); a failure is kept in ``meta_error``."""
         self.meta.update(fields)
-        write_yaml_atomic(self.folder / "session.yaml", self.meta)
+        try:
+            self._meta_file.update(yaml_text(self.meta))
+        except OSError as exc:
+            self.meta_error = exc
+
+
+def describe_os_error(exc: OSError) -> str:
+    """``No space left on device (ENOSPC)``: the OS's words and the error's name."""
+    name = errno.errorcode.get(exc.errno or -1, "")
+    text = exc.strerror or str(exc) or type(exc).__name__
+    return f"{text} ({name})" if name else text
 
 
 def _num(x) -> str:

@@ -94,3 +94,13 @@ class Subscriber(Protocol):
     def on_tick(self, rec: TickRecord) -> None: ...
     def on_event(self, ev: EventRecord) -> None: ...
     def poll(self, now: float) -> None: ...
+
+
+def num_or_none(x) -> float | None:
+    """A value as a float for an event record, or None when it is not a number."""
+    if x is None:
+        return None
+    try:
+        return float(x)
+    except (TypeError, ValueError):
+        return None
