@@ -21,8 +21,8 @@ demo: $(STAMP)
 
 test: $(STAMP)
 	$(MAKE) -C firmware_stub test
-	$(MAKE) pil
-	QT_QPA_PLATFORM=offscreen $(PY) -m pytest -m "not pil"
+	@status=0; $(MAKE) pil || status=1; \
+	QT_QPA_PLATFORM=offscreen $(PY) -m pytest -m "not pil" || status=1; exit $$status
 
 # Processor in the loop: the STM32F4 firmware on QEMU's netduinoplus2, rigloop sessions against
 # it over a pty. Prints a SKIP line (and succeeds) without qemu-system-arm / arm-none-eabi-gcc.
