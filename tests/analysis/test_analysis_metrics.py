@@ -152,6 +152,37 @@ def test_run_metrics_match_independent_formulas():
     assert trapezoid(np.ones(1), np.zeros(1)) == 0.0
 
 
+def test_itae_is_timed_from_the_start_of_the_span_not_the_first_finite_sample():
+    # ITAE = ∫(t − t_0)|e| dt with t_0 the span's first sample (docs/reports.md), also when the
+    # first errors are NaN (e.g. rows before the reference is known); scipy's trapezoid rule on
+    # the finite samples is the reference.
+    from scipy.integrate import trapezoid as sp_trapezoid
+
+    t = np.arange(0.0, 3.0, 0.01) + 5.0
+    e = np.cos(t)
+    e[:50] = np.nan
+    m = run_metrics(t, e, np.zeros_like(t))
+    ok = np.isfinite(e)
+    assert m.itae == pytest.approx(sp_trapezoid((t[ok] - t[0]) * np.abs(e[ok]), t[ok]), rel=1e-12)
+    assert m.itae > sp_trapezoid((t[ok] - t[ok][0]) * np.abs(e[ok]), t[ok]) + 0.1
+
+
+def test_run_metrics_of_several_runs_do_not_bridge_the_gap_between_them():
+    # two runs of 1 s, 10 s apart: integrals, total variation and duration are sums over the runs
+    from scipy.integrate import trapezoid as sp_trapezoid
+
+    t1, t2 = np.arange(0.0, 1.0, 0.01), np.arange(11.0, 12.0, 0.01)
+    e1, e2 = np.full(t1.size, 2.0), np.full(t2.size, -3.0)
+    u1, u2 = np.full(t1.size, 10.0), np.full(t2.size, 60.0)
+    m = run_metrics(np.r_[t1, t2], np.r_[e1, e2], np.r_[u1, u2],
+                    piece=np.r_[np.ones(t1.size), 2 * np.ones(t2.size)])
+    assert m.iae == pytest.approx(sp_trapezoid(np.abs(e1), t1) + sp_trapezoid(np.abs(e2), t2))
+    assert m.itae == pytest.approx(sp_trapezoid((t1 - t1[0]) * 2.0, t1)
+                                   + sp_trapezoid((t2 - t2[0]) * 3.0, t2))
+    assert m.u_total_variation == 0.0
+    assert m.duration_s == pytest.approx((t1[-1] - t1[0]) + (t2[-1] - t2[0]))
+
+
 def test_run_metrics_of_no_samples_are_nan_without_warnings():
     m = run_metrics(np.array([]), np.array([]), np.array([]))
     assert m.samples == 0 and math.isnan(m.rms_error) and math.isnan(m.latency_ms_p50)

@@ -151,5 +151,5 @@ def test_nan_values_fail_with_a_reason(make_session):
     s = _plan_session(make_session, "slow", zeta=1.0, omega=0.8)      # far too slow to settle
     result = evaluate_plan(plan, s)
     c = next(c for c in result.criteria if c.segment == "step up" and c.name == "settling_time_s")
-    assert not c.passed and "did not settle in the ±2 % band" in c.message
+    assert not c.passed and "not settled within the segment (band ±2 % of the change)" in c.message
     assert c.as_dict()["value"] is None

@@ -200,3 +200,29 @@ def test_trips_from_events_keep_their_cause():
     trips = session_trips(SimpleNamespace(meta={"trip": first}, events=events))
     assert [(t["cause"], t["t"]) for t in trips] == [("limit", 1.0), ("stale-data", 6.0), ("e-stop", 9.0)]
     assert trips[1]["message"] == "no fresh sample for 60 ms"
+
+
+def test_band_option_sets_the_stated_band_and_is_checked(make_session, capsys):
+    folder = make_session(zeta=0.5)
+    default = _json(capsys, folder)
+    wide = _json(capsys, folder, "--band", "10")
+    assert {t["band_stated_pct"] for t in default["transitions"]} == {2.0}
+    assert {t["band_stated_pct"] for t in wide["transitions"]} == {10.0} and wide["band_pct"] == 10.0
+    # an underdamped response enters a wider band earlier (or both never leave it)
+    for a, b in zip(default["transitions"], wide["transitions"]):
+        assert b["settling_time_s"] <= a["settling_time_s"]
+    for bad in ("0", "100", "-3"):
+        code, _, err = run_report(capsys, folder, "--band", bad)
+        assert code == 2 and f"--band {float(bad):g}" in err and "percentage" in err
+
+
+def test_text_says_band_below_the_noise_and_not_settled_in_words(make_session, capsys):
+    # noise of 60 output units on changes of several hundred: the 2 % band is below the noise
+    code, out, _ = run_report(capsys, make_session(noise=60.0))
+    assert code == 0
+    assert "* band below the noise: the stated band is narrower than 4× the noise" in out
+    assert "Savitzky–Golay" in out
+    slow = make_session("slow", zeta=1.0, omega=0.3)      # far too slow to settle in a segment
+    code, out, _ = run_report(capsys, slow)
+    table = out.split("Transitions of")[1].split("rise, settle")[0]
+    assert "not settled" in table

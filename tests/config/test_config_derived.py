@@ -1,8 +1,9 @@
 """Derived quantities, checked against sources outside this module.
 
-- Closed-loop figures against python-control (reference library): the poles of the error
-  dynamics the laws impose (iP: e' + Kp e = 0; iPD: e'' + Kd e' + Kp e = 0; iPID: the cubic
-  s^3 + Kd s^2 + Kp s + Ki), via ``control.damp``/``control.poles``.
+- Closed-loop figures against python-control (reference library) and closed forms: the poles
+  of the error dynamics the laws impose (iP: e' + Kp e = 0; iPI: e'' + Kp e' + Ki e = 0; iPD:
+  e'' + Kd e' + Kp e = 0; iPID: the cubic s^3 + Kd s^2 + Kp s + Ki), via
+  ``control.damp``/``control.poles``, numpy.roots and the quadratic formula.
 - Frame sizes against the project's wire encoder (the sizes are those of docs/protocol.md), and
   the UART capacity baud/10 bytes per second for 8N1 framing (1 start + 8 data + 1 stop bit,
   from the common asynchronous serial format; from memory).
@@ -63,6 +64,47 @@ def test_ipid_stability_warning_agrees_with_the_poles(kp, kd, ki):
     assert ("closed-loop stability" in warned(mapping)) == unstable
 
 
+@pytest.mark.parametrize("kp, ki", [(20.0, 1.0), (4.0, 3.0), (2.0, 100.0)])
+def test_ipi_time_scales_come_from_the_roots_of_its_error_polynomial(kp, ki):
+    # Closed form: e'' + Kp e' + Ki e = 0 has the roots (-Kp ± sqrt(Kp² - 4 Ki))/2; the slowest
+    # mode's time constant is 1/min|Re p| and the fastest pole's time scale 1/max|p|. With
+    # Kp = 20, Ki = 1 the slow pole is at -0.0501/s: 19.95 s, not 1/Kp = 0.05 s.
+    mapping = with_values(base(), {"control.law": "iPI", "control.kp": kp, "control.ki": ki,
+                                   "device.rate_hz": 1000, "control.estimator.window_s": 0.01})
+    disc = complex(kp * kp - 4.0 * ki) ** 0.5
+    roots = np.array([(-kp + disc) / 2.0, (-kp - disc) / 2.0])
+    np.testing.assert_allclose(np.sort_complex(np.roots([1.0, kp, ki])), np.sort_complex(roots))
+    got = figures(mapping)
+    assert got["closed-loop time constant"].value == pytest.approx(1.0 / min(-roots.real), rel=1e-9)
+    assert got["closed-loop fastest time scale"].value == pytest.approx(1.0 / max(abs(roots)), rel=1e-9)
+    if (kp, ki) == (20.0, 1.0):
+        assert got["closed-loop time constant"].value == pytest.approx(19.95, abs=0.01)
+
+
+@pytest.mark.parametrize("law, kp, kd, ki", [("iPD", 100.0, 30.0, 0.0), ("iPD", 400.0, 10.0, 0.0),
+                                             ("iPID", 100.0, 20.0, 500.0), ("iPID", 900.0, 80.0, 100.0)])
+def test_ipd_and_ipid_time_scales_match_python_control_poles(law, kp, kd, ki):
+    # Reference library: python-control's poles of 1/(s² + Kd s + Kp) and 1/(s³ + Kd s² + Kp s + Ki).
+    den = [1.0, kd, kp] if law == "iPD" else [1.0, kd, kp, ki]
+    poles = control.poles(control.tf([1.0], den))
+    mapping = with_values(base(), {"control.law": law, "control.kp": kp, "control.kd": kd,
+                                   "control.ki": ki, "device.rate_hz": 5000,
+                                   "control.estimator.window_s": 0.002})
+    got = figures(mapping)
+    assert got["closed-loop time constant"].value == pytest.approx(1.0 / min(-poles.real), rel=1e-6)
+    assert got["closed-loop fastest time scale"].value == pytest.approx(1.0 / max(abs(poles)), rel=1e-6)
+
+
+def test_estimator_warning_follows_the_fastest_pole_not_1_over_kp():
+    # iPI with Kp = 2, Ki = 100: poles -1 ± 9.95j, |p| = 10/s, so the loop moves on a 0.1 s
+    # scale; a 0.15 s window lags it although it is shorter than 1/Kp = 0.5 s.
+    mapping = with_values(base(), {"control.law": "iPI", "control.kp": 2.0, "control.ki": 100.0,
+                                   "control.estimator.window_s": 0.15})
+    assert figures(mapping)["estimator vs loop"].value == pytest.approx(1.5, rel=1e-9)
+    slow = with_values(mapping, {"control.ki": 0.5})          # poles -0.29, -1.71: 0.58 s
+    assert "estimator vs loop" not in warned(slow)
+
+
 @pytest.mark.parametrize("n", [1, 4, 8, 32])
 def test_frame_sizes_match_the_wire_encoder(n):
     from rigloop.protocol.framing import encode_frame, encode_serial
@@ -90,8 +132,11 @@ def test_serial_link_budget_and_warning_above_70_percent():
 
 
 def test_window_warnings_at_the_edges():
-    assert "estimator window" in warned(with_values(base(), {"control.estimator.window_s": 0.02}))
-    assert "estimator window" not in warned(with_values(base(), {"control.estimator.window_s": 0.03}))
+    # the shortest window is the one `rigloop identify` never goes below (5 samples at order 1)
+    from rigloop.control.window_choice import shortest_window
+    assert shortest_window("algebraic", 1) == 5
+    assert "estimator window" in warned(with_values(base(), {"control.estimator.window_s": 0.04}))
+    assert "estimator window" not in warned(with_values(base(), {"control.estimator.window_s": 0.05}))
     long = with_values(base(), {"device.rate_hz": 20000, "control.estimator.window_s": 0.2,
                                 "control.kp": 1.0})
     assert figures(long)["estimator window"].value == 4000

@@ -27,6 +27,8 @@ TABLE = {"reference": {"kind": "table", "file": "profile.csv"}}
 STEPS = {"reference": {"kind": "levels", "initial": 1000.0, "steps": [{"at": 1.0, "to": 1500.0}]}}
 LIMIT_MAX = {"limits": {"speed_rpm": {"max": 3000.0}}}
 LIMIT_MIN = {"limits": {"speed_rpm": {"min": 0.0}}}
+MOTOR_SIM = {**MOTOR, "device.sim.plant": "motor"}
+LOAD_STEP = {"device.sim.rig.load.steps": [{"at_s": 1.0, "torque_nm": 1e-3}]}
 PLAN = {"name": "short", "initial": 1000.0, "segments": [{"to": 1500.0, "hold_s": 2.0}]}
 
 # schema path: (concrete path, valid value, invalid value, context applied first)
@@ -46,6 +48,33 @@ CASES: dict[str, tuple[str, object, object, dict]] = {
     "device.sim.params": ("device.sim.params", {"supply_v": 12.0}, {"bogus_param": 1.0}, {}),
     "device.sim.params_file": ("device.sim.params_file", "fan_params.yaml", "missing.yaml", {}),
     "device.sim.faults": ("device.sim.faults", ["drop:p=0.1"], ["explode:p=1"], {}),
+    "device.sim.rig": ("device.sim.rig", {"dead_zone": 5.0}, {"gear_ratio": 10.0}, {}),
+    "device.sim.rig.dead_zone": ("device.sim.rig.dead_zone", 8.0, 100.0, {}),
+    "device.sim.rig.input_delay_s": ("device.sim.rig.input_delay_s", 0.02, 2.0, {}),
+    "device.sim.rig.gear_ratio": ("device.sim.rig.gear_ratio", 20.0, 0, MOTOR_SIM),
+    "device.sim.rig.backlash_rad": ("device.sim.rig.backlash_rad", 0.01, -0.01, MOTOR_SIM),
+    "device.sim.rig.tach_pulses_per_rev": ("device.sim.rig.tach_pulses_per_rev", 2, 1.5, {}),
+    "device.sim.rig.tach_timeout_s": ("device.sim.rig.tach_timeout_s", 0.1, 0, {}),
+    "device.sim.rig.load": ("device.sim.rig.load", {"walk_nm": 1e-4}, {"ripple_nm": 0.01}, {}),
+    "device.sim.rig.load.drift_nm": ("device.sim.rig.load.drift_nm", 5e-4, -1, {}),
+    "device.sim.rig.load.drift_period_s": ("device.sim.rig.load.drift_period_s", 10.0, 0, {}),
+    "device.sim.rig.load.walk_nm": ("device.sim.rig.load.walk_nm", 1e-4, "lots", {}),
+    "device.sim.rig.load.steps": ("device.sim.rig.load.steps", [{"at_s": 1.0, "torque_nm": 1e-3}],
+                                  {"at_s": 1.0}, {}),
+    "device.sim.rig.load.steps[].at_s": ("device.sim.rig.load.steps.0.at_s", 2.0, -1, LOAD_STEP),
+    "device.sim.rig.load.steps[].torque_nm": ("device.sim.rig.load.steps.0.torque_nm", -1e-3,
+                                              None, LOAD_STEP),
+    "device.sim.rig.load.ripple_nm": ("device.sim.rig.load.ripple_nm", 0.02, -0.02, MOTOR_SIM),
+    "device.sim.rig.load.ripple_per_rev": ("device.sim.rig.load.ripple_per_rev", 2.0, 0, MOTOR_SIM),
+    "device.sim.sensors": ("device.sim.sensors", {"speed_rpm": {"quantum": 5.0}},
+                           {"rotor_rpm": {"quantum": 5.0}}, {}),
+    "device.sim.sensors.<channel>": ("device.sim.sensors.speed_rpm", {"noise_std": 3.0},
+                                     [3.0], {}),
+    "device.sim.sensors.<channel>.noise_std": ("device.sim.sensors.speed_rpm.noise_std", 3.0,
+                                               -1, {}),
+    "device.sim.sensors.<channel>.relative_noise": (
+        "device.sim.sensors.speed_rpm.relative_noise", 0.02, "2%", {}),
+    "device.sim.sensors.<channel>.quantum": ("device.sim.sensors.speed_rpm.quantum", 5.0, -5, {}),
     "device.udp": ("device.udp", {"port": 5000}, 5000, {}),
     "device.udp.host": ("device.udp.host", "rig.local", "", {}),
     "device.udp.port": ("device.udp.port", 5000, 0, {}),
@@ -59,6 +88,7 @@ CASES: dict[str, tuple[str, object, object, dict]] = {
     "channels[].unit": ("channels.1.unit", "mA", 5, {}),
     "channels[].scale": ("channels.1.scale", 0.001, 0, {}),
     "channels[].offset": ("channels.1.offset", -1.5, "zero", {}),
+    "channels[].resolution": ("channels.1.resolution", 0.001, -0.001, {}),
     "actuator": ("actuator", {"min": 0.0, "max": 50.0, "safe": 0.0}, 5, {}),
     "actuator.name": ("actuator.name", "pwm", "pwm duty", {}),
     "actuator.unit": ("actuator.unit", "", 3, {}),
@@ -80,6 +110,8 @@ CASES: dict[str, tuple[str, object, object, dict]] = {
     "control.estimator.kind": ("control.estimator.kind", "one-step", "observer", {}),
     "control.estimator.window_s": ("control.estimator.window_s", 0.2, 0.001, {}),
     "control.derivative_window_s": ("control.derivative_window_s", 0.05, 0.001, {}),
+    "control.quantization_band": ("control.quantization_band", 2.0, -1, {}),
+    "control.input_delay_s": ("control.input_delay_s", 0.03, -0.01, {}),
     "reference": ("reference", {"kind": "levels", "initial": 500.0}, 5, {}),
     "reference.kind": ("reference.kind", "sine", "square",
                        {"reference": {"amplitude": 100.0, "freq_hz": 0.5}}),

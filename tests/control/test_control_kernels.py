@@ -48,6 +48,26 @@ def test_slope_is_exact_on_lines(n):
     assert np.dot(slope_weights(n, ts), y) == pytest.approx(3.25, rel=1e-12)
 
 
+@pytest.mark.parametrize("n", [2, 5, 40])
+def test_slope_is_the_centre_slope_of_quadratics_but_not_of_cubics(n):
+    # Closed form: the derivative of a polynomial at the window's centre t_c (numpy.polyder as
+    # the reference). Exact up to degree 2; a cubic leaves a residue (docstring of slope_weights).
+    ts = 0.013
+    t = np.arange(n + 1) * ts + 4.2
+    t_c = 4.2 + n * ts / 2.0
+    c = slope_weights(n, ts)
+    for coeffs in ([0.75, -2.0, 1.0], [0.0, 0.5, -1.0], [-4.0, 1.5, 2.0]):
+        want = np.polyval(np.polyder(coeffs), t_c)
+        assert np.dot(c, np.polyval(coeffs, t)) == pytest.approx(want, rel=1e-9, abs=1e-9)
+    cubic = [2.0, 0.0, 0.0, 0.0]                     # 2 (t - t_c)³ has zero slope at the centre
+    y = np.polyval(cubic, t - t_c)
+    got = np.dot(c, y)
+    # Σ c_i·2x_i³ with x_i = (i − n/2)·Ts: 2·Σx⁴/Σx² ≠ 0 (the odd term the weights do not cancel)
+    x = (np.arange(n + 1) - n / 2) * ts
+    assert got == pytest.approx(2.0 * np.sum(x**4) / np.sum(x**2), rel=1e-9)
+    assert abs(got) > 1e-3 * 2.0 * (n * ts) ** 2
+
+
 @pytest.mark.parametrize("n", [2, 3, 10, 41])
 def test_second_derivative_is_exact_on_quadratics(n):
     ts = 0.02

@@ -247,6 +247,7 @@ def test_past_session_opens_read_only_with_trip_marker(qtbot, tmp_path):
     qtbot.addWidget(view)
     view.set_root(tmp_path / "sessions")
     assert view.list.count() == 1
+    assert view.list.item(0).text().endswith("tripped · 1 run")     # outcome and number of runs
     assert view.open(folder)
     assert len(view.buffer) == 300
     assert len(view.plots.markers) == 1 and view.plots.markers[0][0] == pytest.approx(2.0)

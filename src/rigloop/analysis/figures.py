@@ -1,7 +1,8 @@
 """The lab-notebook figure of a session (or two sessions overlaid): PNG, and SVG on request.
 
 Four stacked panels share the time axis: output with reference; actuator commanded and
-applied with its limits; the estimate F̂; the error. Trips are marked with a red vertical line
+applied with its limits; the estimate F̂; the error. A session with several runs gets one such
+column per run. Trips are marked with a red vertical line
 and their cause, transitions with a dotted line and their number; stretches where the loop was
 not running are shaded. Sizes are chosen for an A4 page printed at 100 %.
 
@@ -23,29 +24,90 @@ from rigloop.analysis.session import ACTIVE_STATE
 
 #: Above this many samples a trace is drawn as its per-bucket min/max envelope.
 MAX_PLOT_POINTS = 20_000
+#: At most this many runs get a column of panels each (the page stays readable).
+MAX_RUN_COLUMNS = 6
 _FONT = {"label": 10, "tick": 9, "title": 12, "caption": 9, "marker": 8}
 _CAPTION_CHARS = 120   # fits the page width at the caption's font size
 _STYLE = ({"color": "tab:blue", "ls": "-"}, {"color": "tab:orange", "ls": "-"})
 
 
 def session_figure(analyses: list[SessionAnalysis]) -> Figure:
-    """Figure for one session, or two overlaid (A solid, B in the second colour)."""
+    """Figure for one session, or two overlaid (A solid, B in the second colour).
+
+    A session with several runs gets one column of panels per run (each ARM … stop, shown up
+    to the next arm), up to ``MAX_RUN_COLUMNS``; a report of one run shows that run alone.
+    """
     if not 1 <= len(analyses) <= 2:
         raise ValueError(f"session_figure takes one or two analyses, got {len(analyses)}")
     tags = ["A: ", "B: "] if len(analyses) == 2 else [""]
-    caption_lines = [line for tag, an in zip(tags, analyses)
-                     for line in textwrap.wrap(_caption(an, tag), width=_CAPTION_CHARS,
+    spans = _column_spans(analyses)
+    caption = [_caption(an, tag) for tag, an in zip(tags, analyses)]
+    if len(analyses) == 1 and len(analyses[0].runs) > MAX_RUN_COLUMNS:
+        caption.append(f"runs {MAX_RUN_COLUMNS + 1}–{len(analyses[0].runs)} are not drawn; "
+                       f"use rigloop report SESSION --run N for each")
+    caption_lines = [line for text in caption
+                     for line in textwrap.wrap(text, width=_CAPTION_CHARS,
                                                subsequent_indent="    ")]
     bottom = 0.012 + 0.0155 * len(caption_lines)
-    fig = Figure(figsize=(8.27, 10.5), layout="constrained")
+    width = 8.27 if len(spans) == 1 else min(4.2 * len(spans), 23.4)
+    fig = Figure(figsize=(width, 10.5), layout="constrained")
     fig.get_layout_engine().set(rect=(0.0, bottom, 1.0, 1.0 - bottom))
-    axes = fig.subplots(4, 1, sharex=True, gridspec_kw={"height_ratios": [3, 2, 1.5, 1.5]})
+    grid = fig.subplots(4, len(spans), sharex="col", sharey="row", squeeze=False,
+                        gridspec_kw={"height_ratios": [3, 2, 1.5, 1.5]})
+    for col, (span, title) in enumerate(spans):
+        _draw_column(list(grid[:, col]), analyses, tags, first_column=col == 0)
+        if span is not None:
+            grid[0, col].set_xlim(*span)
+            _hide_marks_outside(grid[:, col])
+        if title:
+            grid[0, col].set_title(title, fontsize=_FONT["label"], pad=14)
+
+    s0 = analyses[0].session
+    if len(analyses) == 2:
+        s1 = analyses[1].session
+        title = f"{s0.rig}: A {s0.name} vs B {s1.name}"
+    else:
+        title = f"{s0.rig} — session started {s0.started_utc} (UTC)"
+    fig.suptitle(title, fontsize=_FONT["title"])
+    fig.text(0.01, 0.008, "\n".join(caption_lines), fontsize=_FONT["caption"], va="bottom",
+             ha="left")
+    return fig
+
+
+def _column_spans(analyses: list[SessionAnalysis]) -> list[tuple[tuple[float, float] | None, str]]:
+    """(time span, title) of each column: the whole session, or one per run."""
+    if len(analyses) != 1:
+        return [(None, "")]
+    an = analyses[0]
+    if an.all_runs <= 1 or not an.runs:
+        return [(None, "")]
+    t = an.session.samples["t"]
+    t_last = float(t[-1]) if t.size else 0.0
+    out = []
+    for run in an.runs[:MAX_RUN_COLUMNS]:
+        end = min(run.t_next, t_last)
+        margin = 0.02 * max(end - run.t_start, 1e-3)
+        out.append(((run.t_start - margin, end + margin),
+                    f"run {run.index} of {an.all_runs}: {textwrap.shorten(run.ended, 48)}"))
+    return out
+
+
+def _hide_marks_outside(axes) -> None:
+    """Transition and trip labels placed at a time outside this column's span are not drawn."""
+    for ax in axes:
+        for text in ax.texts:
+            coords = getattr(text, "xycoords", None)
+            if isinstance(coords, tuple) and coords[0] == "data":
+                text.set_annotation_clip(True)
+
+
+def _draw_column(axes, analyses: list[SessionAnalysis], tags: list[str], *,
+                 first_column: bool) -> None:
     ax_y, ax_u, ax_f, ax_e = axes
     first = analyses[0]
     units = first.session.units
     act = first.session.actuator
     two = len(analyses) == 2
-
     for k, (tag, an) in enumerate(zip(tags, analyses)):
         s, style = an.session, _STYLE[k]
         t = s.samples["t"]
@@ -71,28 +133,18 @@ def session_figure(analyses: list[SessionAnalysis]) -> Figure:
                           ha="right", fontsize=_FONT["marker"], color="dimgray")
     ax_e.axhline(0.0, color="black", lw=0.6)
 
-    _label(ax_y, first.session.output_name, units["y"])
-    _label(ax_u, act["name"], units["u"])
-    _label(ax_f, r"estimate $\hat{F}$", units["f"])
-    _label(ax_e, "error y − r", units["y"])
+    if first_column:
+        _label(ax_y, first.session.output_name, units["y"])
+        _label(ax_u, act["name"], units["u"])
+        _label(ax_f, r"estimate $\hat{F}$", units["f"])
+        _label(ax_e, "error y − r", units["y"])
     ax_e.set_xlabel("time since first sample [s]", fontsize=_FONT["label"])
     for ax in axes:
         ax.grid(True, color="0.85", lw=0.6)
         ax.tick_params(labelsize=_FONT["tick"])
-        if ax.get_legend_handles_labels()[0]:
+        if first_column and ax.get_legend_handles_labels()[0]:
             ax.legend(fontsize=_FONT["marker"], loc="upper left", ncol=2 if two else 1,
                       framealpha=0.85)
-
-    s0 = first.session
-    if two:
-        s1 = analyses[1].session
-        title = f"{s0.rig}: A {s0.name} vs B {s1.name}"
-    else:
-        title = f"{s0.rig} — session started {s0.started_utc} (UTC)"
-    fig.suptitle(title, fontsize=_FONT["title"])
-    fig.text(0.01, 0.008, "\n".join(caption_lines), fontsize=_FONT["caption"], va="bottom",
-             ha="left")
-    return fig
 
 
 def save_figure(analyses: list[SessionAnalysis], *, png: str | Path | None = None,

@@ -137,8 +137,11 @@ class RunMetrics:
 
     Error integrals use the trapezoid rule over the sample times, e.g.
     ``IAE = Σ_k ½(|e_k| + |e_k+1|)(t_k+1 − t_k)``; ``ISE`` integrates ``e²`` and ``ITAE``
-    integrates ``(t − t_0)|e|`` with ``t_0`` the first sample of the span. ``rms_error`` is
-    ``sqrt(mean(e²))`` over the samples (not time-weighted; the sample rate is constant).
+    integrates ``(t − t_0)|e|`` with ``t_0`` the time of the span's first sample (whether or
+    not its error is finite). ``rms_error`` is ``sqrt(mean(e²))`` over the samples (not
+    time-weighted; the sample rate is constant). A span made of several runs is integrated run
+    by run: no integral, total variation or duration bridges the time between two runs, and
+    each run's ITAE counts from its own first sample.
     """
 
     samples: int
@@ -191,8 +194,22 @@ def _finite_min(x: np.ndarray) -> float:
     return float(np.min(x)) if x.size else math.nan
 
 
+def _piecewise(f: np.ndarray, t: np.ndarray, piece: np.ndarray) -> float:
+    """Trapezoid integral that does not bridge two pieces (``piece`` labels each sample)."""
+    if f.size < 2:
+        return 0.0
+    same = piece[1:] == piece[:-1]
+    return float(np.sum((0.5 * (f[1:] + f[:-1]) * np.diff(t))[same]))
+
+
+def _piece_starts(t: np.ndarray, piece: np.ndarray) -> np.ndarray:
+    """Per sample: the time of the first sample of its piece."""
+    first = np.concatenate(([True], piece[1:] != piece[:-1]))
+    return t[np.flatnonzero(first)][np.cumsum(first) - 1]
+
+
 def run_metrics(t, e, u, *, f_hat=None, u_min: float = math.nan, u_max: float = math.nan,
-                latency_ms=None, compute_us=None, late=None) -> RunMetrics:
+                latency_ms=None, compute_us=None, late=None, piece=None) -> RunMetrics:
     """Metrics over the given samples (pass only the rows that belong to the span).
 
     - error: ``rms_error``, ``mean_error``, ``iae``, ``ise``, ``itae``, ``max_abs_error`` of
@@ -205,6 +222,9 @@ def run_metrics(t, e, u, *, f_hat=None, u_min: float = math.nan, u_max: float = 
     - ``f_hat_min``/``f_hat_max``: range of F̂ ignoring NaN (warm-up) rows.
     - latency/compute: 50th and 99th percentile and maximum of the finite values;
       ``late_ticks``: sum of the ``late`` column.
+
+    ``piece`` labels each sample with its run (time-ordered; default: one run); ``duration_s``
+    is then the sum of the runs' durations.
     """
     t = np.asarray(t, dtype=float)
     e = np.asarray(e, dtype=float)
@@ -214,25 +234,32 @@ def run_metrics(t, e, u, *, f_hat=None, u_min: float = math.nan, u_max: float = 
                          f"{t.shape}, {e.shape}, {u.shape}")
     nan = math.nan
     n = int(t.size)
-    duration = float(t[-1] - t[0]) if n >= 2 else 0.0
+    piece = np.zeros(n, dtype=np.int64) if piece is None else np.asarray(piece)
+    if piece.shape != t.shape:
+        raise ValueError(f"piece must label every sample, got shape {piece.shape} for {t.shape}")
+    ends = np.concatenate((piece[1:] != piece[:-1], [True])) if n else np.array([], bool)
+    starts = np.concatenate(([True], piece[1:] != piece[:-1])) if n else np.array([], bool)
+    duration = float(np.sum(t[ends] - t[starts])) if n >= 2 else 0.0
 
     ok = np.isfinite(e) & np.isfinite(t)
-    te, ee = t[ok], e[ok]
+    te, ee, pe = t[ok], e[ok], piece[ok]
     if ee.size:
         abs_e = np.abs(ee)
         rms = float(np.sqrt(np.mean(ee * ee)))
         mean_e = float(np.mean(ee))
-        iae = trapezoid(abs_e, te)
-        ise = trapezoid(ee * ee, te)
-        itae = trapezoid((te - te[0]) * abs_e, te)
+        iae = _piecewise(abs_e, te, pe)
+        ise = _piecewise(ee * ee, te, pe)
+        t0 = _piece_starts(t, piece)[ok]          # the span's first sample, finite error or not
+        itae = _piecewise((te - t0) * abs_e, te, pe)
         max_abs_e = float(np.max(abs_e))
     else:
         rms = mean_e = iae = ise = itae = max_abs_e = nan
 
-    uu = u[np.isfinite(u)]
+    okay_u = np.isfinite(u)
+    uu, pu = u[okay_u], piece[okay_u]
     if uu.size:
         u_rms = float(np.sqrt(np.mean(uu * uu)))
-        u_tv = float(np.sum(np.abs(np.diff(uu))))
+        u_tv = float(np.sum(np.abs(np.diff(uu))[pu[1:] == pu[:-1]]))
         max_abs_u = float(np.max(np.abs(uu)))
     else:
         u_rms = u_tv = max_abs_u = nan

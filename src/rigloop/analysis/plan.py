@@ -21,13 +21,10 @@ from __future__ import annotations
 import difflib
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 
-import numpy as np
-
-from rigloop.analysis.metrics import SETTLE_BAND, metric_unit
-from rigloop.analysis.segments import rows_metrics, running_starts, segment_metrics
+from rigloop.analysis.metrics import SETTLE_BAND
 from rigloop.analysis.session import Session
 from rigloop.config.problems import MISSING, Problem
 
@@ -301,150 +298,12 @@ def session_plan(session: Session) -> dict | None:
     return dict(plan)
 
 
-# --- evaluation ---------------------------------------------------------------------------
+# --- evaluation (rigloop.analysis.verdicts) -----------------------------------------------
 
-@dataclass(frozen=True)
-class CriterionResult:
-    segment: str | None      # None for a whole-run criterion
-    name: str
-    limit: object            # {"min": x, "max": y} (the bounds given) or True for a yes/no criterion
-    value: object            # the measured value (float, NaN when not measurable, or bool)
-    passed: bool
-    message: str
+def evaluate_plan(plan: Mapping, session: Session):
+    """Judge a recorded session against a plan's criteria, run by run; returns a
+    :class:`~rigloop.analysis.verdicts.PlanResult` (see
+    :func:`rigloop.analysis.verdicts.judge_plan`)."""
+    from rigloop.analysis.verdicts import judge_plan
 
-    def as_dict(self) -> dict:
-        value = self.value
-        if isinstance(value, float) and not math.isfinite(value):
-            value = None
-        return {"segment": self.segment, "name": self.name, "limit": self.limit,
-                "value": value, "passed": self.passed, "message": self.message}
-
-
-@dataclass(frozen=True)
-class PlanResult:
-    name: str
-    passed: bool
-    criteria: list[CriterionResult] = field(default_factory=list)
-
-    @property
-    def failed(self) -> list[CriterionResult]:
-        return [c for c in self.criteria if not c.passed]
-
-    def as_dict(self) -> dict:
-        """Plain types only, ready for session.yaml and JSON."""
-        return {"name": self.name, "passed": self.passed, "failed": len(self.failed),
-                "criteria": [c.as_dict() for c in self.criteria]}
-
-
-def evaluate_plan(plan: Mapping, session: Session) -> PlanResult:
-    """Judge a recorded session against a plan's criteria.
-
-    Segment windows are ``[origin + at, origin + at + blend_s + hold_s)`` in session time, where
-    ``origin`` is the time of the first running row (the plan's reference starts there; see
-    :mod:`rigloop.analysis.segments`).
-    Every segment gets a ``completed`` check (the running data cover its whole window); the
-    criteria of a segment that was not completed fail. Whole-run criteria are measured over the
-    running rows from the end of the lead-in to the end of the plan (the lead-in is where the
-    rig comes up to the initial level; it says nothing about the loop's tracking). A criterion
-    whose metric cannot be measured (NaN, e.g. the output never settled) fails and says why.
-    """
-    segments = plan_segments(plan)
-    units = session.units
-    starts = running_starts(session)
-    origin = starts[0] if starts else 0.0
-    t = session.samples["t"]
-    active = session.active_mask()
-    t_last = float(t[active][-1]) if active.any() else -math.inf
-    period = float(np.median(np.diff(t))) if t.size >= 2 else 0.0
-    results: list[CriterionResult] = []
-
-    for seg in segments:
-        t0, t1 = origin + seg.at, origin + seg.end
-        done = t_last >= t1 - 1.5 * period
-        msg = (f"running data cover the segment (t = {t0:.3f} … {t1:.3f} s)" if done else
-               f"not completed: the running data end at t = {t_last:.3f} s, the segment needs "
-               f"t = {t0:.3f} … {t1:.3f} s")
-        results.append(CriterionResult(seg.name, "completed", True, done, done, msg))
-        if not seg.criteria:
-            continue
-        step, tracking = segment_metrics(session, t0, t1, seg.r_from, seg.to,
-                                         settle_band=seg.settle_band)
-        values = {**step.as_dict(), **tracking.as_dict()}
-        values["abs_steady_state_error"] = abs(values["steady_state_error"])
-        for name, limit in seg.criteria.items():
-            if not done:
-                results.append(CriterionResult(seg.name, name, dict(limit), math.nan, False,
-                                               f"{name}: not judged, the segment was not completed"))
-            else:
-                results.append(_judge(seg.name, name, limit, values[name], units, seg.settle_band))
-
-    criteria = dict(plan.get("criteria") or {})
-    if criteria:
-        t_begin = origin + (segments[0].at if segments else 0.0)
-        t_end = origin + (segments[-1].end if segments else 0.0)
-        rows = active & (t >= t_begin) & (t <= t_end)
-        values = rows_metrics(session, rows).as_dict()
-        values["lost_samples"] = session.lost_samples
-        values["rejected_frames"] = session.rejected_frames_total
-        for name, limit in criteria.items():
-            if name == "no_trip":
-                if limit:
-                    results.append(_judge_no_trip(session))
-            elif name == "completed":
-                if limit:
-                    ok = session.outcome == "completed"
-                    results.append(CriterionResult(None, name, True, ok, ok,
-                                                   f"outcome: {session.outcome}"))
-            else:
-                results.append(_judge(None, name, limit, values[name], units))
-    name = str(plan.get("name") or "test plan")
-    return PlanResult(name, all(r.passed for r in results), results)
-
-
-def _judge(segment: str | None, name: str, limit: Mapping, value: float, units: dict,
-           settle_band: float = SETTLE_BAND) -> CriterionResult:
-    unit = metric_unit(name, units)
-    unit = f" {unit}" if unit else ""
-    lo, hi = limit.get("min"), limit.get("max")
-    bounds = {k: float(v) for k, v in limit.items() if k in ("min", "max")}
-    if not math.isfinite(value):
-        return CriterionResult(segment, name, bounds, value, False,
-                               f"{name}: {_why_nan(name, settle_band)}")
-    shown = f"{name} = {value:.4g}{unit}"
-    if lo is not None and value < lo:
-        return CriterionResult(segment, name, bounds, value, False,
-                               f"{shown} below the minimum {lo:g}{unit}")
-    if hi is not None and value > hi:
-        return CriterionResult(segment, name, bounds, value, False,
-                               f"{shown} above the maximum {hi:g}{unit}")
-    if lo is not None and hi is not None:
-        allowed = f"within {lo:g} … {hi:g}{unit}"
-    elif lo is not None:
-        allowed = f"at least {lo:g}{unit}"
-    else:
-        allowed = f"at most {hi:g}{unit}"
-    return CriterionResult(segment, name, bounds, value, True, f"{shown}, {allowed}")
-
-
-def _judge_no_trip(session: Session) -> CriterionResult:
-    trip = session.meta.get("trip")
-    trips = [ev for ev in session.events if ev.kind in ("trip", "estop")]
-    if isinstance(trip, Mapping):
-        ok, msg = False, f"tripped: {trip.get('message') or trip.get('cause')}"
-    elif trips:
-        ok, msg = False, f"tripped at t = {trips[0].t} s: {trips[0].detail}"
-    elif not session.clean_end:
-        ok, msg = False, "cannot confirm: the session ended without a clean stop"
-    else:
-        ok, msg = True, f"no trip (outcome: {session.outcome})"
-    return CriterionResult(None, "no_trip", True, ok, ok, msg)
-
-
-def _why_nan(name: str, settle_band: float) -> str:
-    if name == "settling_time_s":
-        return f"did not settle in the ±{100 * settle_band:g} % band before the segment ended"
-    if name == "rise_time_s":
-        return "did not reach 90 % of the change"
-    if name in ("lost_samples", "rejected_frames"):
-        return "not recorded in session.yaml's summary"
-    return "no value (no running samples to measure)"
+    return judge_plan(plan, session)

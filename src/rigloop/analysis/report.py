@@ -1,7 +1,8 @@
-"""Assemble what a session report says, as data (JSON) and as text; compare two sessions.
+"""Assemble what a session report says, as data; compare two sessions.
 
-The analysis is computed once (:func:`analyse`) and rendered twice: :func:`render_text` for
-people, :meth:`SessionAnalysis.as_dict` for scripts. Every definition lives in
+The analysis is computed once (:func:`analyse`) and rendered twice:
+:func:`rigloop.analysis.report_text.render_text` for people, :meth:`SessionAnalysis.as_dict`
+(JSON) for scripts. Every definition lives in
 :mod:`rigloop.analysis.metrics`; this module only chooses rows, labels and layout.
 """
 
@@ -12,8 +13,11 @@ import math
 from dataclasses import dataclass, field
 from typing import Any
 
-from rigloop.analysis.metrics import RunMetrics, metric_unit
+import numpy as np
+
+from rigloop.analysis.metrics import RunMetrics
 from rigloop.analysis.plan import evaluate_plan, plan_reference_spec, plan_segments, session_plan
+from rigloop.analysis.runs import Run, session_runs
 from rigloop.analysis.segments import ProfileStep, Segment, analyse_segments, rows_metrics
 from rigloop.analysis.session import Session
 from rigloop.plain_data import plain
@@ -61,6 +65,10 @@ class SessionAnalysis:
     plan: dict | None                  # PlanResult.as_dict() shape
     plan_source: str | None            # "recorded" (session.yaml) or "evaluated" (by the report)
     notes: list[str] = field(default_factory=list)
+    runs: list[Run] = field(default_factory=list)             # the runs reported
+    run_metrics: list[RunMetrics] = field(default_factory=list)  # one per reported run
+    all_runs: int = 0                  # runs in the session (``runs`` may be one of them)
+    band: float | None = None          # --band: the settling band given, fraction of the change
 
     @property
     def units(self) -> dict[str, str]:
@@ -87,6 +95,9 @@ class SessionAnalysis:
         out["lost_samples"] = s.lost_samples
         out["rejected_frames"] = rejected
         out["rejected_frames_total"] = s.rejected_frames_total
+        out["runs_in_session"] = self.all_runs
+        out["runs"] = [{**r.as_dict(), **_plain_run(m)} for r, m in zip(self.runs, self.run_metrics)]
+        out["band_pct"] = None if self.band is None else 100.0 * self.band
         out["trips"] = self.trips
         out["transitions"] = [seg.as_dict() for seg in self.segments]
         out["plan"] = self.plan
@@ -96,9 +107,29 @@ class SessionAnalysis:
         return out
 
 
-def analyse(session: Session) -> SessionAnalysis:
-    """Compute the report's content for one session."""
+def _plain_run(m: RunMetrics) -> dict:
+    out = m.as_dict()
+    out.pop("samples")
+    return out
+
+
+def analyse(session: Session, *, band: float | None = None, run: int | None = None
+            ) -> SessionAnalysis:
+    """Compute the report's content for one session.
+
+    ``band`` (a fraction of the change) replaces every settling band of the transition table
+    (the plan's verdicts keep the plan's bands); ``run`` (1-based) reports that run alone.
+    Raises ``ValueError`` naming the runs there are when ``run`` is not one of them.
+    """
     notes: list[str] = []
+    all_runs = session_runs(session)
+    runs = all_runs
+    if run is not None:
+        if not 1 <= run <= len(all_runs):
+            have = (f"it has {len(all_runs)} run(s), numbered 1 to {len(all_runs)}" if all_runs
+                    else "it has no run (the loop never reached the running state)")
+            raise ValueError(f"--run {run}: no such run in {session.name}; {have}")
+        runs = [all_runs[run - 1]]
     plan = None
     try:
         plan = session_plan(session)
@@ -107,16 +138,26 @@ def analyse(session: Session) -> SessionAnalysis:
     if plan is not None:
         spec = plan_reference_spec(plan)
         steps = [ProfileStep(p.name, p.settle_band) for p in plan_segments(plan)]
-        segments, seg_notes = analyse_segments(session, spec, source="plan", steps=steps)
+        segments, seg_notes = analyse_segments(session, spec, source="plan", steps=steps,
+                                               band=band, runs=runs)
     else:
         spec = session.config.get("reference")
-        segments, seg_notes = analyse_segments(session, spec if isinstance(spec, dict) else None)
+        segments, seg_notes = analyse_segments(session, spec if isinstance(spec, dict) else None,
+                                               band=band, runs=runs)
     notes += seg_notes
 
-    run = rows_metrics(session, session.active_mask())
-    if not run.samples:
+    mask = np.zeros(session.n_rows, dtype=bool)
+    for r in runs:
+        mask |= r.running_rows(session)
+    total = rows_metrics(session, mask if run is not None else session.active_mask())
+    per_run = [rows_metrics(session, r.running_rows(session)) for r in runs]
+    if not total.samples:
         notes.append("no rows were recorded in the running state: no tracking metric or "
                       "transition can be measured")
+    arms = sum(1 for ev in session.events if ev.kind == "armed")
+    if arms > len(all_runs):
+        notes.append(f"armed {arms} times, {len(all_runs)} of them reached the running state "
+                     f"(an arm refused or tripped before the first running sample has no run)")
 
     verdicts, source = None, None
     recorded = session.meta.get("plan")
@@ -124,7 +165,28 @@ def analyse(session: Session) -> SessionAnalysis:
         verdicts, source = recorded, "recorded"
     elif plan is not None:
         verdicts, source = evaluate_plan(plan, session).as_dict(), "evaluated"
-    return SessionAnalysis(session, run, segments, session_trips(session), verdicts, source, notes)
+    if verdicts is not None and run is not None and len(all_runs) > 1:
+        verdicts = _verdicts_of_run(verdicts, run)
+    trips = session_trips(session)
+    if run is not None:
+        r = runs[0]
+        trips = [tr for tr in trips if _in_run(tr.get("t"), r)]
+    return SessionAnalysis(session, total, segments, trips, verdicts, source, notes, runs,
+                           per_run, len(all_runs), band)
+
+
+def _verdicts_of_run(verdicts: dict, run: int) -> dict:
+    criteria = [c for c in verdicts.get("criteria") or [] if c.get("run") in (None, run)]
+    failed = sum(1 for c in criteria if not c.get("passed"))
+    return {**verdicts, "criteria": criteria, "failed": failed, "passed": failed == 0,
+            "run": run}
+
+
+def _in_run(t: object, run: Run) -> bool:
+    try:
+        return run.t_start <= float(t) < run.t_next
+    except (TypeError, ValueError):
+        return False
 
 
 def session_trips(session: Session) -> list[dict]:
@@ -157,7 +219,7 @@ def _same_time(a, b) -> bool:
         return False
 
 
-# --- text ---------------------------------------------------------------------------------
+# --- numbers as text (shared with report_text and figures) --------------------------------
 
 def fmt(x: object, digits: int = 4) -> str:
     """A number with about ``digits`` significant digits, without an exponent for everyday
@@ -178,112 +240,9 @@ def fmt(x: object, digits: int = 4) -> str:
     return f"{x:.{max(0, digits - 1 - mag)}f}"
 
 
-def _value_with_unit(value: object, unit: str) -> str:
+def value_with_unit(value: object, unit: str) -> str:
     text = fmt(value)
     return f"{text} {unit}" if unit and text != "n/a" else text
-
-
-def render_text(analysis: SessionAnalysis) -> str:
-    s, a = analysis.session, analysis.as_dict()
-    units = analysis.units
-    lines = [f"Session report: {s.name}"]
-    if s.truncated:
-        lines.append(f"WARNING: {s.truncated}")
-    lines += [
-        f"  folder   {s.path}",
-        f"  rig      {s.rig}",
-        f"  started  {a['started_utc'] or '?'}   ended {a['ended_utc'] or 'not recorded'}",
-        f"  outcome  {s.outcome}" + (f" ({a['stop_reason']})" if a["stop_reason"] else ""),
-        f"  samples  {s.n_rows} recorded, {analysis.run.samples} while running "
-        f"({fmt(analysis.run.duration_s)} s)",
-        "",
-    ]
-    lines += _transition_table(analysis.segments, s.output_name, units["y"])
-    lines.append("")
-    lines.append("Run metrics (running rows only)")
-    width = max(len(label) for _, label in RUN_ROWS)
-    for key, label in RUN_ROWS:
-        lines.append(f"  {label:<{width}}  {_value_with_unit(a.get(key), metric_unit(key, units))}")
-    lines.append("")
-    lines += _trip_lines(analysis.trips)
-    if analysis.plan is not None:
-        lines.append("")
-        lines += _plan_lines(analysis.plan, analysis.plan_source)
-    remarks = analysis.notes + s.warnings
-    if remarks:
-        lines.append("")
-        lines.append("Notes")
-        lines += [f"  - {n}" for n in remarks]
-    return "\n".join(lines) + "\n"
-
-
-def _transition_table(segments: list[Segment], output: str, unit: str) -> list[str]:
-    title = f"Transitions of {output}" + (f" [{unit}]" if unit else "")
-    if not segments:
-        return [title, "  none (the reference held one level, or no transition was reached)"]
-    bands = {seg.settle_band for seg in segments}
-    head = ["#", "label", "from", "to", "start s"] + [c for _, c in STEP_COLUMNS]
-    if len(bands) > 1:
-        head.append("band %")
-    rows = []
-    for seg in segments:
-        row = [str(seg.index), seg.label, fmt(seg.r_from), fmt(seg.r_to), f"{seg.t_start:.3f}"]
-        row += [fmt(getattr(seg.step, key)) for key, _ in STEP_COLUMNS]
-        if len(bands) > 1:
-            row.append(fmt(100.0 * seg.settle_band))
-        rows.append(row)
-    band = f"±{fmt(100.0 * bands.pop())} %" if len(bands) == 1 else "the band given per row"
-    return [title] + _table(head, rows, text_cols=(1,)) + [
-        "  rise: 10–90 % of the change; ss error: target − mean output over the last 10 % of "
-        "the segment;",
-        f"  settle: from the start of the blend until the output stays within {band} of the change"]
-
-
-def _table(head: list[str], rows: list[list[str]], text_cols: tuple[int, ...] = (0,)) -> list[str]:
-    """Aligned columns: text columns left, numbers right."""
-    widths = [max(len(head[i]), *(len(r[i]) for r in rows)) for i in range(len(head))]
-
-    def line(cells: list[str]) -> str:
-        return "  " + "  ".join(c.ljust(w) if i in text_cols else c.rjust(w)
-                                for i, (c, w) in enumerate(zip(cells, widths))).rstrip()
-    return [line(head)] + [line(r) for r in rows]
-
-
-def _trip_lines(trips: list[dict]) -> list[str]:
-    if not trips:
-        return ["Trips: none"]
-    out = [f"Trips ({len(trips)})"]
-    for tr in trips:
-        where = f"t = {fmt(tr.get('t'))} s" if tr.get("t") is not None else "t = ?"
-        cause = tr.get("cause") or "trip"
-        parts = [f"  {where}  {cause}"]
-        if tr.get("channel"):
-            parts.append(f"channel {tr['channel']}")
-        if tr.get("value") is not None:
-            parts.append(f"value {fmt(tr['value'])}")
-        if tr.get("limit") is not None:
-            parts.append(f"limit {fmt(tr['limit'])}")
-        text = ", ".join(parts)
-        if tr.get("message"):
-            text += f" — {tr['message']}"
-        out.append(text)
-    return out
-
-
-def _plan_lines(plan: dict, source: str | None) -> list[str]:
-    criteria = plan.get("criteria") or []
-    failed = [c for c in criteria if not c.get("passed")]
-    verdict = "PASSED" if plan.get("passed") else "FAILED"
-    origin = " (evaluated by this report)" if source == "evaluated" else ""
-    out = [f"Test plan '{plan.get('name', 'test plan')}': {verdict}{origin} — "
-           f"{len(criteria) - len(failed)} of {len(criteria)} criteria met"]
-    if plan.get("error"):
-        out.append(f"  the plan could not be evaluated: {plan['error']}")
-    for c in criteria:
-        mark = "pass" if c.get("passed") else "FAIL"
-        where = c.get("segment") or "whole run"
-        out.append(f"  [{mark}] {where}: {c.get('message')}")
-    return out
 
 
 # --- comparison ---------------------------------------------------------------------------
@@ -306,46 +265,6 @@ def comparison_dict(a: SessionAnalysis, b: SessionAnalysis) -> dict[str, Any]:
         {"index": ta["index"], **{k: _diff(ta[k], tb[k]) for k, _ in STEP_COLUMNS}}
         for ta, tb in zip(da["transitions"], db["transitions"])]
     return {"a": da, "b": db, "diff": diff}
-
-
-def render_comparison(a: SessionAnalysis, b: SessionAnalysis) -> str:
-    comp = comparison_dict(a, b)
-    da, db, diff = comp["a"], comp["b"], comp["diff"]
-    units = a.units
-    lines = ["Session comparison (B − A)"]
-    for tag, an in (("A", a), ("B", b)):
-        s = an.session
-        lines.append(f"  {tag}  {s.name}  rig {s.rig}, outcome {s.outcome}, {s.n_rows} samples")
-        if s.truncated:
-            lines.append(f"     WARNING: {s.truncated}")
-    if a.units != b.units:
-        lines.append(f"  note: the units differ (A: {a.units}, B: {b.units}); A's are shown")
-    lines.append("")
-    head = ["metric", "A", "B", "B − A", "%"]
-    rows = []
-    for key, label in RUN_ROWS:
-        unit = metric_unit(key, units)
-        rows.append([f"{label}" + (f" [{unit}]" if unit else ""), fmt(da.get(key)),
-                     fmt(db.get(key)), fmt(diff[key]["b_minus_a"]), fmt(diff[key]["pct"], 3)])
-    lines += _table(head, rows)
-    lines.append("")
-    n = min(len(da["transitions"]), len(db["transitions"]))
-    lines.append(f"Transitions compared by index ({n} in both; A has {len(da['transitions'])}, "
-                 f"B has {len(db['transitions'])})")
-    if n:
-        head = ["#", "metric", "A", "B", "B − A", "%"]
-        rows = []
-        for ta, tb, td in zip(da["transitions"], db["transitions"], diff["transitions"]):
-            for key, title in STEP_COLUMNS:
-                rows.append([str(ta["index"]), title, fmt(ta[key]), fmt(tb[key]),
-                             fmt(td[key]["b_minus_a"]), fmt(td[key]["pct"], 3)])
-        lines += _table(head, rows, text_cols=(1,))
-    for tag, an in (("A", a), ("B", b)):
-        if an.trips:
-            lines.append("")
-            lines += [f"{tag}: " + line.strip() if i == 0 else line
-                      for i, line in enumerate(_trip_lines(an.trips))]
-    return "\n".join(lines) + "\n"
 
 
 # --- JSON ---------------------------------------------------------------------------------

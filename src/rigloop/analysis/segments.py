@@ -24,10 +24,10 @@ from typing import NamedTuple
 
 import numpy as np
 
-from rigloop.analysis.metrics import (
-    SETTLE_BAND, RunMetrics, StepMetrics, run_metrics, step_metrics,
-)
+from rigloop.analysis.metrics import SETTLE_BAND, RunMetrics, StepMetrics, run_metrics
+from rigloop.analysis.runs import Run, run_labels, session_runs
 from rigloop.analysis.session import Session
+from rigloop.analysis.transition import TransitionMetrics, not_measured, transition_metrics
 from rigloop.control.reference import Transition, build_reference
 
 _BLEND_IN_DETAIL = re.compile(r"blend_s\s*=\s*([-+0-9.eE]+)")
@@ -42,18 +42,23 @@ class Segment:
     label: str
     t_start: float
     t_blend_end: float
-    t_end: float               # end of the segment: next transition or end of the running data
+    t_end: float               # end of the segment: next transition or end of its run
     r_from: float
     r_to: float
-    settle_band: float         # fraction of the change
-    step: StepMetrics
+    settle_band: float         # stated band, fraction of the change
+    transition: TransitionMetrics
     tracking: RunMetrics
+    run: int = 1               # the run (ARM … stop) it belongs to
+
+    @property
+    def step(self) -> StepMetrics:
+        return self.transition.step
 
     def as_dict(self) -> dict:
-        out = {"index": self.index, "source": self.source, "label": self.label,
+        out = {"index": self.index, "run": self.run, "source": self.source, "label": self.label,
                "t_start": self.t_start, "t_blend_end": self.t_blend_end, "t_end": self.t_end,
                "r_from": self.r_from, "r_to": self.r_to, "settle_band_pct": 100.0 * self.settle_band}
-        out.update(self.step.as_dict())
+        out.update(self.transition.as_dict())
         out.update({"rms_error": self.tracking.rms_error, "iae": self.tracking.iae,
                     "max_abs_error": self.tracking.max_abs_error,
                     "max_abs_u": self.tracking.max_abs_u})
@@ -158,52 +163,81 @@ def _recorded_ref(session: Session, t_at: float) -> float:
 
 
 def rows_metrics(session: Session, rows: np.ndarray) -> RunMetrics:
-    """:func:`~rigloop.analysis.metrics.run_metrics` of the selected rows of a session."""
+    """:func:`~rigloop.analysis.metrics.run_metrics` of the selected rows of a session; rows of
+    different runs are integrated run by run (nothing bridges the time between two runs)."""
     col = session.column
     act = session.actuator
     return run_metrics(session.samples["t"][rows], col("e", rows), col("u", rows),
                        f_hat=col("f_hat", rows), u_min=act["min"], u_max=act["max"],
                        latency_ms=col("latency_ms", rows), compute_us=col("compute_us", rows),
-                       late=col("late", rows))
+                       late=col("late", rows), piece=run_labels(session)[rows])
 
 
 def segment_metrics(session: Session, t_from: float, t_to: float, r_from: float, r_to: float,
-                    *, include_end: bool = False, settle_band: float = SETTLE_BAND
-                    ) -> tuple[StepMetrics, RunMetrics]:
-    """Step and tracking metrics of the running rows with ``t_from <= t < t_to``."""
+                    *, include_end: bool = False, settle_band: float = SETTLE_BAND,
+                    within: np.ndarray | None = None) -> tuple[TransitionMetrics, RunMetrics]:
+    """Step and tracking metrics of the running rows with ``t_from <= t < t_to`` (and in the
+    mask ``within``, e.g. one run's rows, when given)."""
     t = session.samples["t"]
     in_span = (t >= t_from) & ((t <= t_to) if include_end else (t < t_to))
     rows = session.active_mask() & in_span
+    if within is not None:
+        rows &= within
     tracking = rows_metrics(session, rows)
     if math.isfinite(r_from) and math.isfinite(r_to) and r_from != r_to:
-        step = step_metrics(t[rows], session.column("y", rows), t_step=t_from, y_initial=r_from,
-                            y_final=r_to, settle_band=settle_band)
+        step = transition_metrics(t[rows], session.column("y", rows), t_step=t_from,
+                                  y_initial=r_from, y_final=r_to, settle_band=settle_band)
     else:
-        step = StepMetrics(*(math.nan,) * 6)
+        step = not_measured(settle_band)
     return step, tracking
 
 
+def _run_of(runs: list[Run], t_at: float) -> Run | None:
+    """The run whose running rows span ``t_at`` (a transition may start on its first row)."""
+    for run in runs:
+        if run.t_start - 1e-9 <= t_at <= run.t_end + 1e-9:
+            return run
+    return None
+
+
 def analyse_segments(session: Session, spec: dict | None, *, source: str = "reference",
-                     steps: list[ProfileStep] | None = None) -> tuple[list[Segment], list[str]]:
+                     steps: list[ProfileStep] | None = None, band: float | None = None,
+                     runs: list[Run] | None = None) -> tuple[list[Segment], list[str]]:
     """Segments of the session for the reference ``spec`` plus setpoint/profile events; returns
-    ``(segments, notes)`` where notes explain what could not be measured."""
+    ``(segments, notes)`` where notes explain what could not be measured.
+
+    A segment belongs to the run in which its transition starts and ends with that run at the
+    latest; a transition that starts while the rig was idle, stopping or tripped is not
+    measured. ``band`` (a fraction of the change) replaces every stated settling band;
+    ``runs`` limits the segments to those runs (default: every run)."""
     items, notes = session_transitions(session, spec, source=source, steps=steps)
-    active = session.active_mask()
-    if not active.any():
+    all_runs = session_runs(session)
+    if not all_runs:
         return [], notes
-    t_last = float(session.samples["t"][active][-1])
-    reached = [item for item in items if item.tr.t_start <= t_last]
-    if len(reached) < len(items):
-        notes.append(f"{len(items) - len(reached)} transition(s) start after the running data "
-                     f"end (t = {t_last:.3f} s) and are not measured")
+    chosen = {r.index for r in (all_runs if runs is None else runs)}
+    owned: list[tuple[_Labelled, Run]] = []
+    outside = 0
+    for item in items:
+        run = _run_of(all_runs, item.tr.t_start)
+        if run is None:
+            outside += 1
+        elif run.index in chosen:
+            owned.append((item, run))
+    if outside:
+        notes.append(f"{outside} transition(s) start where the loop was not running (before an "
+                     f"arm, after a stop or a trip, or after the running data end) and are not "
+                     f"measured")
     segments = []
-    for k, (src, label, tr, band) in enumerate(reached):
-        last = k + 1 == len(reached)
-        t_next = t_last if last else reached[k + 1].tr.t_start
+    for k, ((src, label, tr, stated), run) in enumerate(owned):
+        nxt = owned[k + 1] if k + 1 < len(owned) else None
+        ends_run = nxt is None or nxt[1].index != run.index or nxt[0].tr.t_start > run.t_end
+        t_next = run.t_end if ends_run else nxt[0].tr.t_start
         if tr.r_from == tr.r_to:
             continue
+        use = stated if band is None else band
         step, tracking = segment_metrics(session, tr.t_start, t_next, tr.r_from, tr.r_to,
-                                         include_end=last, settle_band=band)
+                                         include_end=ends_run, settle_band=use,
+                                         within=run.running_rows(session))
         segments.append(Segment(len(segments) + 1, src, label, tr.t_start, tr.t_end, t_next,
-                                tr.r_from, tr.r_to, band, step, tracking))
+                                tr.r_from, tr.r_to, use, step, tracking, run.index))
     return segments, notes

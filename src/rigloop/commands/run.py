@@ -105,7 +105,8 @@ def print_summary(result, stream) -> None:
         w(f"trip: {t.cause} at t={_g(t.t)} s: {t.message}\n")
     rms = s.get("rms_error")
     w(f"samples: {s.get('samples')}  running: {s.get('running_samples')}  "
-      f"RMS error: {_g(rms)}  max |e|: {_g(s.get('max_abs_error'))}\n")
+      f"RMS error: {_g(rms)}  max |e|: {_g(s.get('max_abs_error'))} "
+      f"(all running rows, lead-in included)\n")
     rej = s.get("rejected_frames") or {}
     w(f"link: lost {s.get('lost_samples', 0)}, rejected {rej.get('total_rejected', 0)}, "
       f"late ticks {s.get('late_ticks', 0)}\n")
@@ -114,12 +115,10 @@ def print_summary(result, stream) -> None:
     w(f"loop timing: latency p50 {_g(lat.get('p50'))} ms, p99 {_g(lat.get('p99'))} ms; "
       f"compute p50 {_g(comp.get('p50'))} us, p99 {_g(comp.get('p99'))} us\n")
     if result.plan is not None:
-        verdict = "PASS" if result.plan.get("passed") else "FAIL"
-        w(f"test plan: {verdict}\n")
-        for c in result.plan.get("criteria", []):
-            mark = "PASS" if c.get("passed") else "FAIL"
-            w(f"  {mark}  {c.get('segment') or 'run'}: {c.get('name')} = {_g(c.get('value'))} "
-              f"(limit {c.get('limit')})\n")
+        from rigloop.analysis.report_text import plan_lines
+
+        for line in plan_lines(result.plan):
+            w(line + "\n")
     w(f"session: {result.session_dir}\n")
     stream.flush()
 

@@ -97,6 +97,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--param", metavar="KEY=VALUE", type=_assignment, action="append",
                         default=[], help="one plant parameter, VALUE read as YAML; overrides "
                                          "--params (repeatable)")
+    parser.add_argument("--rig", metavar="YAML", type=_mapping_text("--rig"), default=None,
+                        help="imperfections around the plant, a mapping as device.sim.rig in "
+                             "docs/config.md, e.g. '{dead_zone: 8, input_delay_s: 0.01}'")
+    parser.add_argument("--sensors", metavar="YAML", type=_mapping_text("--sensors"),
+                        default=None, help="sensor settings per channel, a mapping as "
+                                           "device.sim.sensors in docs/config.md")
     parser.add_argument("--channels", metavar="A,B,C", default=None,
                         help="channels to send, in order (default: all of the plant's)")
     parser.add_argument("--scale", metavar="NAME=S", type=_assignment, action="append",
@@ -152,7 +158,7 @@ def _load_params(args: argparse.Namespace) -> dict:
         params.update(data)
     for key, text in args.param:
         try:
-            params[key] = yaml.safe_load(text) if text else None
+            params[key] = _yaml_or_json(text) if text else None
         except yaml.YAMLError:
             raise _UsageError(f"--param {key}={text!r}: the value is not valid YAML") from None
     return params
@@ -175,6 +181,33 @@ def _scaling(pairs: list[tuple[str, str]], option: str, names: list[str]) -> dic
     return out
 
 
+def _yaml_or_json(text: str):
+    """A value written as JSON (what the engine passes: ``1e-06`` is a number there, while YAML
+    1.1 reads it as text) or else as YAML (what a user types)."""
+    import yaml
+
+    try:
+        return json.loads(text)
+    except ValueError:
+        return yaml.safe_load(text)
+
+
+def _mapping_text(option: str):
+    """argparse type: YAML (or JSON) text holding a mapping."""
+    def parse(text: str) -> dict:
+        import yaml
+
+        try:
+            data = _yaml_or_json(text)
+        except yaml.YAMLError:
+            raise argparse.ArgumentTypeError(f"{option}: {text!r} is not valid YAML") from None
+        if not isinstance(data, dict):
+            raise argparse.ArgumentTypeError(f"{option}: give a mapping such as '{{key: value}}', "
+                                             f"got {text!r}")
+        return data
+    return parse
+
+
 def build_from_args(args: argparse.Namespace):
     """(device, transport, options) from parsed arguments; raises _UsageError / ValueError."""
     from rigloop.sim.device import SentChannel, build_device
@@ -193,7 +226,8 @@ def build_from_args(args: argparse.Namespace):
     offsets = _scaling(args.offset, "--offset", names)
     channels = [SentChannel(n, scales.get(n, 1.0), offsets.get(n, 0.0)) for n in names]
     device = build_device(args.plant, params=params, channels=channels, rate_hz=args.rate,
-                          noise=args.noise, seed=args.seed, faults=args.fault)
+                          noise=args.noise, seed=args.seed, faults=args.fault,
+                          rig=args.rig, sensors=args.sensors)
     options = ServerOptions(clock=args.clock, quit_after_s=args.quit_after,
                             exit_with_parent=args.exit_with_parent, rx_log=args.rx_log,
                             trace=args.trace,

@@ -10,7 +10,10 @@ from __future__ import annotations
 import math
 from typing import NamedTuple
 
+import numpy as np
+
 from rigloop.config.model import Config
+from rigloop.control.window_choice import shortest_window
 
 #: Frame sizes from docs/protocol.md: version + type + body + CRC-16.
 SAMPLE_FRAME_FIXED = 27          # 2 + 23 + 2, plus 4 bytes per channel
@@ -95,10 +98,11 @@ def _estimator(cfg: Config, out: list[Derived]) -> None:
                            "window_s is not used)"))
     else:
         n = round(est.window_s * rate)
-        warn = n < WINDOW_SAMPLES_LOW or n > WINDOW_SAMPLES_HIGH
+        low = shortest_window(est.kind, ctl.order)     # the bound `rigloop identify` suggests from
+        warn = n < low or n > WINDOW_SAMPLES_HIGH
         note = f"{est.kind}, {_g(est.window_s * 1000)} ms"
-        if n < WINDOW_SAMPLES_LOW:
-            note += "; very few samples, F is estimated from noise - lengthen window_s"
+        if n < low:
+            note += f"; fewer than {low} samples, F is estimated from noise - lengthen window_s"
         elif n > WINDOW_SAMPLES_HIGH:
             note += ("; long windows cost compute per sample and follow F slowly - shorten "
                      "window_s")
@@ -110,52 +114,105 @@ def _estimator(cfg: Config, out: list[Derived]) -> None:
                            n < WINDOW_SAMPLES_LOW))
 
 
+#: The characteristic polynomial of the error dynamics each law imposes when F̂ = F
+#: (coefficients, highest power first). iP: e' + Kp·e = 0. iPI, written for the integral
+#: z = ∫e: z'' + Kp·z' + Ki·z = 0. iPD: e'' + Kd·e' + Kp·e = 0. iPID, for z = ∫e:
+#: z⁽³⁾ + Kd·z'' + Kp·z' + Ki·z = 0.
+ERROR_POLYNOMIALS = {
+    "iP": lambda kp, ki, kd: [1.0, kp],
+    "iPI": lambda kp, ki, kd: [1.0, kp, ki],
+    "iPD": lambda kp, ki, kd: [1.0, kd, kp],
+    "iPID": lambda kp, ki, kd: [1.0, kd, kp, ki],
+}
+_POLY_TEXT = {"iP": "s + Kp", "iPI": "s^2 + Kp s + Ki", "iPD": "s^2 + Kd s + Kp",
+              "iPID": "s^3 + Kd s^2 + Kp s + Ki"}
+
+
+def error_poles(law: str, kp: float, ki: float = 0.0, kd: float = 0.0) -> np.ndarray:
+    """Poles of the law's closed-loop error dynamics (roots of :data:`ERROR_POLYNOMIALS`)."""
+    return np.roots(np.asarray(ERROR_POLYNOMIALS[law](kp, ki, kd), dtype=float))
+
+
+def loop_time_scales(law: str, kp: float, ki: float = 0.0, kd: float = 0.0
+                     ) -> tuple[float, float] | None:
+    """``(slowest, fastest)`` time scales of the error dynamics, s: the time constant of the
+    slowest mode, ``1/min|Re p|`` (how long the last of an error takes to fade), and
+    ``1/max|p|`` of the fastest pole (how fast the loop moves the output, and so F). None when
+    a pole does not decay (Re p >= 0)."""
+    poles = error_poles(law, kp, ki, kd)
+    if poles.size == 0 or np.any(poles.real >= 0.0):
+        return None
+    return 1.0 / float(np.min(-poles.real)), 1.0 / float(np.max(np.abs(poles)))
+
+
+def _pole_text(poles: np.ndarray) -> str:
+    def one(p: complex) -> str:
+        if abs(p.imag) <= 1e-9 * max(1.0, abs(p)):
+            return _g(p.real)
+        return f"{_g(p.real)}{'+' if p.imag > 0 else '-'}{_g(abs(p.imag))}j"
+    return ", ".join(one(p) for p in sorted(poles, key=lambda p: (-p.real, p.imag)))
+
+
 def _closed_loop(cfg: Config, out: list[Derived]) -> float | None:
-    """Append the design figures of the closed loop; return its time scale in seconds."""
+    """Append the design figures of the closed loop; return the time scale of its fastest pole
+    in seconds (the one the sampling and the estimator window must follow)."""
     ctl = cfg.control
-    law, kp, ki, kd = ctl.law, ctl.kp, ctl.ki, ctl.kd
-    scale: float | None = None
-    if law in ("iP", "iPI"):
-        if kp > 0:
-            scale = 1.0 / kp
-            out.append(Derived("closed-loop time constant", scale, "s",
-                               "1/Kp: the error decays as exp(-Kp t) when F is well estimated"))
-        else:
-            out.append(Derived("closed-loop time constant", None, "s",
-                               "Kp is 0: nothing pulls the output to the reference; set kp > 0",
-                               True))
-        if law == "iPI" and ki == 0:
-            out.append(Derived("integral gain", 0.0, "1/s^2",
-                               "ki is 0, so iPI acts as iP; set ki > 0 or use law iP", True))
-    elif law in ("iPD", "iPID"):
-        if kp > 0:
-            omega = math.sqrt(kp)
-            zeta = kd / (2.0 * omega)
-            scale = 1.0 / omega
-            out.append(Derived("closed-loop natural frequency", omega, "rad/s", "omega = sqrt(Kp)"))
-            out.append(Derived("closed-loop damping", zeta, "", "zeta = Kd / (2 sqrt(Kp))"
-                               + ("; 0 means an undamped oscillation - set kd > 0" if zeta == 0
-                                  else ""), zeta == 0))
-        else:
-            out.append(Derived("closed-loop natural frequency", None, "rad/s",
-                               "Kp is 0: nothing pulls the output to the reference; set kp > 0",
-                               True))
-        if law == "iPID":
-            if ki == 0:
-                out.append(Derived("integral gain", 0.0, "1/s^3",
-                                   "ki is 0, so iPID acts as iPD; set ki > 0 or use law iPD", True))
-            elif not kd * kp > ki:
-                # s^3 + Kd s^2 + Kp s + Ki (positive coefficients) is stable only if Kd*Kp > Ki,
-                # the classical stability test for a cubic polynomial
-                out.append(Derived("closed-loop stability", "unstable", "",
-                                   f"Kd*Kp = {_g(kd * kp)} must exceed Ki = {_g(ki)} for stable "
-                                   f"error dynamics (stability test of the cubic); lower ki or raise kd", True))
-    else:
-        out.append(Derived("PID baseline", f"Kp {_g(kp)}, Ki {_g(ki)}, Kd {_g(kd)}", "",
-                           f"classic PID on the same error, bias pid_u0 = {_g(ctl.pid_u0)}"))
+    law = ctl.law
+    if law not in ERROR_POLYNOMIALS:
+        out.append(Derived("PID baseline", f"Kp {_g(ctl.kp)}, Ki {_g(ctl.ki)}, Kd {_g(ctl.kd)}",
+                           "", f"classic PID on the same error, bias pid_u0 = {_g(ctl.pid_u0)}"))
         if not cfg.actuator.min <= ctl.pid_u0 <= cfg.actuator.max:
             out.append(Derived("PID bias", ctl.pid_u0, cfg.actuator.unit,
                                "control.pid_u0 lies outside the actuator range", True))
+        return None
+    kp = ctl.kp
+    ki = ctl.ki if law in ("iPI", "iPID") else 0.0
+    kd = ctl.kd if law in ("iPD", "iPID") else 0.0
+    if kp <= 0:
+        label = ("closed-loop time constant" if law in ("iP", "iPI")
+                 else "closed-loop natural frequency")
+        out.append(Derived(label, None, "rad/s" if "frequency" in label else "s",
+                           "Kp is 0: nothing pulls the output to the reference; set kp > 0", True))
+        return None
+    if law in ("iPI", "iPID") and ki == 0:
+        base = "iP" if law == "iPI" else "iPD"
+        out.append(Derived("integral gain", 0.0, "1/s^2" if law == "iPI" else "1/s^3",
+                           f"ki is 0, so {law} acts as {base}; set ki > 0 or use law {base}", True))
+        law = base
+    poly = _POLY_TEXT[law]
+    poles = error_poles(law, kp, ki, kd)
+    out.append(Derived("closed-loop poles", _pole_text(poles), "1/s",
+                       f"roots of {poly}: the error dynamics when F is well estimated"))
+    if law in ("iPD", "iPID"):
+        omega = math.sqrt(kp)
+        zeta = kd / (2.0 * omega)
+        part = " (of the s^2 + Kd s + Kp part)" if law == "iPID" else ""
+        out.append(Derived("closed-loop natural frequency", omega, "rad/s",
+                           f"omega = sqrt(Kp){part}"))
+        out.append(Derived("closed-loop damping", zeta, "", f"zeta = Kd / (2 sqrt(Kp)){part}"
+                           + ("; 0 means an undamped oscillation - set kd > 0" if zeta == 0 else ""),
+                           zeta == 0))
+    scales = loop_time_scales(law, kp, ki, kd)
+    if scales is None:
+        why = (f"Kd*Kp = {_g(kd * kp)} must exceed Ki = {_g(ki)} (stability test of the cubic)"
+               if law == "iPID" else f"a pole of {poly} does not lie left of the imaginary axis")
+        out.append(Derived("closed-loop stability", "unstable", "",
+                           f"the error does not decay: {why}; lower ki or raise kd", True))
+        return None
+    slow, fast = scales
+    out.append(Derived("closed-loop time constant", slow, "s",
+                       "slowest pole, 1/min|Re p|: the last of an error decays as exp(-t/tau)"
+                       + (" (1/Kp)" if law == "iP" else "")))
+    if law != "iP":
+        out.append(Derived("closed-loop fastest time scale", fast, "s",
+                           "fastest pole, 1/max|p|: how fast the loop moves the output"))
+    return fast
+
+
+def _gain_checks(cfg: Config, out: list[Derived], scale: float | None) -> None:
+    """Gains the law ignores; a loop too fast for the sampling or for the estimator window."""
+    ctl = cfg.control
+    law, ki, kd = ctl.law, ctl.ki, ctl.kd
     unused = []
     if law in ("iP", "iPD") and ki > 0:
         unused.append("ki")
@@ -169,16 +226,17 @@ def _closed_loop(cfg: Config, out: list[Derived]) -> float | None:
         samples = scale * cfg.device.rate_hz
         if samples < LOOP_SAMPLES_PER_TIME_CONSTANT:
             out.append(Derived("closed-loop speed", samples, "samples",
-                               f"the loop time scale is only {_g(samples, 3)} sample periods; "
+                               f"the fastest closed-loop pole's time scale is only "
+                               f"{_g(samples, 3)} sample periods; "
                                f"aim for at least {LOOP_SAMPLES_PER_TIME_CONSTANT} (lower the "
                                f"gains or raise device.rate_hz)", True))
         est = ctl.estimator
         if est.kind != "one-step" and est.window_s > scale:
             out.append(Derived("estimator vs loop", est.window_s / scale, "x",
                                f"the estimator window ({_g(est.window_s * 1000)} ms) is longer than "
-                               f"the loop time scale ({_g(scale * 1000)} ms); F will lag - shorten "
-                               f"the window or lower the gains", True))
-    return scale
+                               f"the time scale of the fastest closed-loop pole "
+                               f"({_g(scale * 1000)} ms), at which the loop moves the output and "
+                               f"so F; F will lag - shorten the window or lower the gains", True))
 
 
 def _link(cfg: Config, out: list[Derived]) -> None:
@@ -284,7 +342,7 @@ def derived_quantities(cfg: Config) -> list[Derived]:
     out: list[Derived] = []
     _timing(cfg, out)
     _estimator(cfg, out)
-    _closed_loop(cfg, out)
+    _gain_checks(cfg, out, _closed_loop(cfg, out))
     _link(cfg, out)
     _safety(cfg, out)
     _recording(cfg, out)

@@ -18,6 +18,8 @@ class SimConfig:
     params: dict
     params_file: Path | None      # absolute (resolved against the config file's folder)
     faults: tuple[str, ...]
+    rig: dict = field(default_factory=dict)        # device.sim.rig (rigloop.plants.rig_config)
+    sensors: dict = field(default_factory=dict)    # device.sim.sensors
 
     def plant_params(self) -> dict:
         """Parameters for the plant: the file's values, overridden by ``params`` key by key."""
@@ -76,6 +78,7 @@ class ChannelConfig:
     unit: str
     scale: float
     offset: float
+    resolution: float | None = None   # None: measured by the controller from the readings
 
 
 @dataclass(frozen=True)
@@ -107,6 +110,8 @@ class ControlConfig:
     pid_u0: float
     estimator: EstimatorConfig
     derivative_window_s: float | None
+    input_delay_s: float = 0.0
+    quantization_band: float = 1.0
 
 
 @dataclass(frozen=True)
@@ -177,6 +182,22 @@ class Config:
         return copy.deepcopy(self.raw)
 
 
+def _rig_options(rig: dict) -> dict:
+    """``device.sim.rig`` with default-valued entries left out (an unchanged plant: {})."""
+    from rigloop.config.schema import KEYS
+
+    out: dict = {}
+    for key, value in rig.items():
+        if key == "load":
+            load = {k: v for k, v in value.items()
+                    if v != KEYS[f"device.sim.rig.load.{k}"].default}
+            if load:
+                out["load"] = load
+        elif value != KEYS[f"device.sim.rig.{key}"].default:
+            out[key] = value
+    return out
+
+
 def build_config(root: dict, *, source_path: Path | None, base_dir: Path, url: str) -> Config:
     """Typed objects from a mapping that passed validation (no INVALID left in it)."""
     dev = root["device"]
@@ -188,7 +209,8 @@ def build_config(root: dict, *, source_path: Path | None, base_dir: Path, url: s
         sim=SimConfig(plant=sim["plant"], clock=sim["clock"], noise=sim["noise"], seed=sim["seed"],
                       params=dict(sim["params"]),
                       params_file=Path(params_file) if params_file else None,
-                      faults=tuple(sim["faults"])),
+                      faults=tuple(sim["faults"]), rig=_rig_options(sim.get("rig") or {}),
+                      sensors={k: dict(v) for k, v in (sim.get("sensors") or {}).items()}),
         udp=UdpConfig(**dev["udp"]),
         serial=SerialConfig(**dev["serial"]),
     )
@@ -197,7 +219,8 @@ def build_config(root: dict, *, source_path: Path | None, base_dir: Path, url: s
         output=ctl["output"], law=ctl["law"], order=ctl["order"], alpha=ctl["alpha"],
         kp=ctl["kp"], ki=ctl["ki"], kd=ctl["kd"], anti_windup=ctl["anti_windup"],
         pid_u0=ctl["pid_u0"], estimator=EstimatorConfig(**ctl["estimator"]),
-        derivative_window_s=ctl["derivative_window_s"],
+        derivative_window_s=ctl["derivative_window_s"], input_delay_s=ctl["input_delay_s"],
+        quantization_band=ctl["quantization_band"],
     )
     lim = root["limits"]
     fixed = set(fixed_limit_settings())

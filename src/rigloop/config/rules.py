@@ -203,7 +203,9 @@ _CONTROL_FIELDS = {"law": "control.law", "order": "control.order", "alpha": "con
                    "kp": "control.kp", "ki": "control.ki", "kd": "control.kd",
                    "estimator": "control.estimator.kind", "window_s": "control.estimator.window_s",
                    "derivative_window_s": "control.derivative_window_s",
-                   "anti_windup": "control.anti_windup", "pid_u0": "control.pid_u0"}
+                   "anti_windup": "control.anti_windup", "pid_u0": "control.pid_u0",
+                   "input_delay_s": "control.input_delay_s",
+                   "quantization_band": "control.quantization_band"}
 
 
 @rule
@@ -225,9 +227,11 @@ def controller_builds(ctx: RuleContext) -> Iterator[Problem]:
             law=control["law"], order=control["order"], alpha=control["alpha"], kp=control["kp"],
             ki=control["ki"], kd=control["kd"], estimator=estimator["kind"],
             window_s=estimator["window_s"], derivative_window_s=control["derivative_window_s"],
-            anti_windup=control["anti_windup"], pid_u0=control["pid_u0"])
+            anti_windup=control["anti_windup"], pid_u0=control["pid_u0"],
+            input_delay_s=control["input_delay_s"], quantization_band=control["quantization_band"])
         params.window_samples(1.0 / rate)
         params.derivative_window_samples(1.0 / rate)
+        params.estimation_samples(1.0 / rate)
     except ValueError as error:
         message = str(error)
         field = re.match(r"^([a-z_0-9]+)", message)
@@ -486,6 +490,29 @@ def simulated_rig_matches_plant(ctx: RuleContext) -> Iterator[Problem]:
         if _valid(value) and not u_low <= value <= u_high:
             yield Problem(key, value, f"is outside what the simulated {plant} accepts "
                                       f"({_fmt(u_low)}..{_fmt(u_high)})")
+
+
+@rule
+def simulated_rig_options_fit_plant(ctx: RuleContext) -> Iterator[Problem]:
+    """``device.sim.rig`` options the plant cannot have (a gear on the fan ...)."""
+    if get(ctx.root, "device.link") != "sim":
+        return
+    plant, rig = get(ctx.root, "device.sim.plant"), get(ctx.root, "device.sim.rig")
+    if not _valid(plant, rig) or _has_invalid(rig):
+        return
+    try:
+        from rigloop.config.model import _rig_options
+        from rigloop.plants.rig_config import build_rig
+    except ImportError:
+        return
+    from rigloop.plants.rig import RigOptionError
+
+    try:
+        build_rig(plant, None, _rig_options(rig))
+    except RigOptionError as error:
+        yield Problem(f"device.sim.rig.{error.key}", error.value, error.why)
+    except (ValueError, TypeError) as error:
+        yield Problem("device.sim.rig", _rig_options(rig), str(error).strip("'\""))
 
 
 @rule

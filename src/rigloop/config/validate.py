@@ -47,9 +47,11 @@ class SchemaWalker:
         self.problems: list[Problem] = []
         self._pending: list[tuple[dict, str, Computed]] = []
         self.root: dict = {}
+        self._given: Mapping = {}
 
     def run(self, mapping: Mapping) -> dict:
         self.root = {}
+        self._given = mapping
         self._section("", mapping, "", out=self.root)
         for container, name, computed in self._pending:
             try:
@@ -109,7 +111,9 @@ class SchemaWalker:
     def _wildcard_names(self, section: Section) -> list[str] | None:
         if not section.wildcard_from:
             return None
-        items = self.root.get(section.wildcard_from)
+        # A section before its name list in the table (device.sim.sensors before channels)
+        # reads the names as given; a broken item then lets every name through, as below.
+        items = self.root.get(section.wildcard_from, self._given.get(section.wildcard_from))
         if not isinstance(items, list):
             return None
         names = []

@@ -30,10 +30,12 @@ import numbers
 from collections.abc import Mapping
 from dataclasses import asdict, dataclass, fields, replace
 
-from rigloop.control.estimators import ESTIMATOR_KINDS, make_kernel
-from rigloop.control.kernels import MAX_WINDOW_SAMPLES, derivative_kernel
+from rigloop.control.estimation import Estimation, law_inputs
+from rigloop.control.estimators import ESTIMATOR_KINDS
+from rigloop.control.kernels import MAX_WINDOW_SAMPLES
 from rigloop.control.laws import ANTI_WINDUP_MODES, LAWS, MODEL_ORDER, ControlLaw, LawGains
-from rigloop.control.ring import PairWindow, interleave
+from rigloop.control.quantization import QuantizationBand
+from rigloop.control.ring import PairWindow
 
 
 def _is_number(value: object) -> bool:
@@ -55,6 +57,9 @@ class ControlParams:
     derivative_window_s: float | None = None  # None -> same as window_s
     anti_windup: str = "conditional"  # conditional | back-calculation | none
     pid_u0: float = 0.0  # PID baseline bias (operating-point feed-forward)
+    input_delay_s: float = 0.0  # known input delay of the ultra-local model (estimators.py)
+    quantization_band: float = 1.0  # hysteresis on y in counts of the resolution (quantization.py)
+    resolution: float | None = None  # the output's resolution; None: measured from the readings
 
     def __post_init__(self) -> None:
         if self.law not in LAWS:
@@ -89,13 +94,25 @@ class ControlParams:
                     f"derivative_window_s = {self.derivative_window_s!r} must be a number > 0 s, "
                     "or None to use window_s"
                 )
+        if not _is_number(self.input_delay_s) or self.input_delay_s < 0:
+            raise ValueError(f"input_delay_s = {self.input_delay_s!r} must be a number >= 0 s "
+                             "(0: no delay in the model)")
         if self.anti_windup not in ANTI_WINDUP_MODES:
             raise ValueError(
                 f"anti_windup = {self.anti_windup!r} is unknown; use one of {', '.join(ANTI_WINDUP_MODES)}"
             )
+        if not _is_number(self.quantization_band) or self.quantization_band < 0:
+            raise ValueError(f"quantization_band = {self.quantization_band!r} must be a number >= 0 "
+                             "(counts of the output's resolution; 0 = off)")
+        if self.resolution is not None and (not _is_number(self.resolution) or self.resolution < 0):
+            raise ValueError(f"resolution = {self.resolution!r} must be a number >= 0 (0: a continuous "
+                             "reading), or None to measure it from the readings")
         # plain Python numbers from here on (numpy scalars, ints from YAML)
-        for name in ("alpha", "kp", "ki", "kd", "window_s", "pid_u0"):
+        for name in ("alpha", "kp", "ki", "kd", "window_s", "pid_u0", "input_delay_s",
+                     "quantization_band"):
             object.__setattr__(self, name, float(getattr(self, name)))
+        if self.resolution is not None:
+            object.__setattr__(self, "resolution", float(self.resolution))
         object.__setattr__(self, "order", int(self.order))
         if self.derivative_window_s is not None:
             object.__setattr__(self, "derivative_window_s", float(self.derivative_window_s))
@@ -112,6 +129,10 @@ class ControlParams:
         """Derivative window in sample intervals: ``max(2, round(derivative_window_s/ts))``."""
         w = self.window_s if self.derivative_window_s is None else self.derivative_window_s
         return _samples(w, ts, 2, "derivative_window_s" if self.derivative_window_s is not None else "window_s")
+
+    def estimation_samples(self, ts: float) -> int:
+        """Samples the F estimate reads, the input delay included (ValueError over the limit)."""
+        return Estimation(self, ts).f_needed
 
     def as_dict(self) -> dict:
         return asdict(self)
@@ -158,40 +179,7 @@ def _samples(seconds: float, ts: float, minimum: int, name: str) -> int:
     return n
 
 
-class _Estimation:
-    """The weights one parameter set needs, laid over the controller's shared sample window.
-
-    F̂ and ŷ' are each one dot product of a weight vector with the interleaved ``(y, u)``
-    window; the weights are padded with zeros when the window is longer than they need.
-    """
-
-    __slots__ = ("params", "order", "window", "derivative_window", "f_needed", "d_needed",
-                 "samples_needed", "_kernel", "_dk", "_wy", "_wu", "wf", "wd")
-
-    def __init__(self, params: ControlParams, ts: float) -> None:
-        self.params = params
-        self.order = params.order
-        n = params.window_samples(ts)
-        self._kernel = make_kernel(params.estimator, params.order, n, ts)
-        self.window = params.order if params.estimator == "one-step" else n
-        self.derivative_window = params.derivative_window_samples(ts)
-        self._dk = derivative_kernel(self.derivative_window, ts)
-        self.f_needed = self._kernel.span + 1
-        self.d_needed = self.derivative_window + 1
-        self.samples_needed = max(self.f_needed, self.d_needed)
-
-    def fit(self, length: int) -> None:
-        """Lay the weights over a window of ``length`` samples (>= samples_needed)."""
-        self._wy = interleave(self._kernel.y_weights, None, length)
-        self._wu = interleave(None, self._kernel.u_weights, length)
-        self.wd = interleave(self._dk, None, length)
-        self.set_alpha(self.params.alpha)
-
-    def set_alpha(self, alpha: float) -> None:
-        self.wf = self._wy - alpha * self._wu
-
-
-_ESTIMATION_FIELDS = ("order", "estimator", "window_s", "derivative_window_s")
+_ESTIMATION_FIELDS = ("order", "estimator", "window_s", "derivative_window_s", "input_delay_s")
 
 
 class Controller:
@@ -213,17 +201,18 @@ class Controller:
         self.u_min, self.u_max = float(u_min), float(u_max)
         self.u_hold = float(u_hold)
         self.params = params
-        self._pending: _Estimation | None = None
+        self._pending: Estimation | None = None
         self._start(params)
 
     def _start(self, params: ControlParams) -> None:
         """Fresh window, estimation and law for ``params`` (warm-up)."""
         self.params = params
-        self._est = _Estimation(params, self.ts)
+        self._est = Estimation(params, self.ts)
         self._ring = PairWindow(self._est.samples_needed)
         self._est.fit(self._ring.length)
         self._law = ControlLaw(params.gains, self.ts, self.u_min, self.u_max, params.anti_windup)
         self._law.reset(self.u_hold)
+        self._band = QuantizationBand(params.quantization_band, params.resolution)
         self._y = self._r = self._dr = self._ddr = math.nan
         self._clear_outputs()
 
@@ -272,6 +261,8 @@ class Controller:
         Returns ``u_hold`` during warm-up. After the call, ``f_hat``, ``e``, ``de``, ``dy``,
         ``integral``, ``ready`` and ``u`` describe this sample.
         """
+        measured = y
+        y = self._band.filter(y)      # the law and the estimates see the output through the band
         ring = self._ring
         ring.push(y, u_applied)
         self._y = y
@@ -284,7 +275,7 @@ class Controller:
         est = self._est
         count = ring.count
         view = ring.view()
-        self.e = e = y - r
+        self.e = measured - r
         if count >= est.f_needed:
             self.f_hat = float(est.wf.dot(view))
         if count >= est.d_needed:
@@ -295,7 +286,9 @@ class Controller:
             self.u = self.u_hold
             return self.u
         self.ready = True
-        self.u = self._law.output(self.f_hat, e, self.de, self.dy, dr if est.order == 1 else ddr, u_applied)
+        law_e, law_de, law_dy, law_rd = law_inputs(est, view, self.f_hat, self.dy, y, r, dr, ddr)
+        law_e = self._band.error(law_e)
+        self.u = self._law.output(self.f_hat, law_e, law_de, law_dy, law_rd, u_applied)
         self.integral = self._law.integral
         return self.u
 
@@ -318,7 +311,7 @@ class Controller:
         if "law" in changes and "order" not in changes and changes["law"] in MODEL_ORDER:
             changes = {**changes, "order": MODEL_ORDER[changes["law"]]}
         new = replace(base, **changes)
-        candidate = _Estimation(new, self.ts)  # validates the windows against ts
+        candidate = Estimation(new, self.ts)  # validates the windows against ts
         rebuild = any(getattr(new, k) != getattr(self.params, k) for k in _ESTIMATION_FIELDS)
         if not rebuild:
             # gains, alpha, anti-windup: at once (a pending switch is superseded)
@@ -337,6 +330,9 @@ class Controller:
             self._switch(at_sample=False)  # during warm-up: at once, the warm-up goes on
 
     def _apply_in_place(self, new: ControlParams) -> None:
+        self._band.band = new.quantization_band
+        if new.resolution != self._band.resolution:
+            self._band.resolution = new.resolution
         self.params = new
         self._est.params = new
         self._est.set_alpha(new.alpha)
@@ -359,21 +355,18 @@ class Controller:
         assert new is not None
         self._pending = None
         view = self._ring.view()
+        y, r, dr, ddr = self._y, self._r, self._dr, self._ddr
         if at_sample:
-            old_dy = float(old.wd.dot(view))
-            self._law.remember(
-                float(old.wf.dot(view)), self._y - self._r, old_dy - self._dr, old_dy,
-                self._dr if old.order == 1 else self._ddr,
-            )
+            old_f, old_dy = float(old.wf.dot(view)), float(old.wd.dot(view))
+            self._law.remember(old_f, *law_inputs(old, view, old_f, old_dy, y, r, dr, ddr))
         f_hat = float(new.wf.dot(view))
         dy = float(new.wd.dot(view))
         self._est = new
         self.params = new.params
         self._law.set_anti_windup(new.params.anti_windup)
-        self._law.retune(
-            new.params.gains, f_hat=f_hat, de=dy - self._dr, dy=dy,
-            ref_deriv=self._dr if new.order == 1 else self._ddr,
-        )
+        law_e, law_de, law_dy, law_rd = law_inputs(new, view, f_hat, dy, y, r, dr, ddr)
+        self._law.retune(new.params.gains, f_hat=f_hat, e=law_e, de=law_de, dy=law_dy,
+                         ref_deriv=law_rd)
         if not at_sample:
             count = self._ring.count
             self.f_hat = f_hat if count >= new.f_needed else math.nan

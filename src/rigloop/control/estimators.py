@@ -12,12 +12,26 @@ A shorter window follows a changing F faster; a longer one filters more noise. E
 recomputed from the window (no running sums), so a bad sample leaves the estimate once it has
 left the window, and rounding never accumulates. A new alpha gives the new estimate over the same
 window at once (:meth:`Estimator.set_alpha`).
+
+**A known input delay** ``tau`` (the ultra-local model ``y^(m)(t) = F + alpha·u(t − tau)`` for
+delay systems, as in "Model-free control", International Journal of Control, 2013) pairs each
+y-interval with the input that acted on the plant then: the u-weights move ``tau/Ts`` samples
+back (:func:`window_weights`). Without it, F̂ absorbs ``alpha·(u(t − tau) − u(t))`` and the
+loop reacts to its own commands as if they were disturbances. For a whole number of samples the
+estimate stays exact on the delayed model; a fraction of a sample splits each weight between
+the two inputs that acted during the interval, exact for order 1 (the zero-order-hold input is
+piecewise constant) and a linear interpolation for order 2.
+
+The controller (:mod:`rigloop.control.controller`) and :class:`Estimator` lay the weights with
+the same functions, so a test of one is a test of the other.
 """
 
 from __future__ import annotations
 
 import math
 import numbers
+
+import numpy as np
 
 from rigloop.control.kernels import Kernel, algebraic_kernel, averaging_kernel, one_step_kernel
 from rigloop.control.ring import PairWindow, interleave
@@ -32,6 +46,39 @@ def _check_alpha(alpha: float) -> float:
     return float(alpha)
 
 
+def delay_intervals(delay_s: float, ts: float) -> float:
+    """A known input delay in sample intervals (ValueError when negative or not finite)."""
+    if isinstance(delay_s, bool) or not isinstance(delay_s, numbers.Real) or not math.isfinite(delay_s) \
+            or delay_s < 0:
+        raise ValueError(f"input delay must be a finite number of seconds >= 0, got {delay_s!r}")
+    d = float(delay_s) / float(ts)
+    # A delay within a millionth of a whole number of samples is that whole number (rounding of
+    # tau/Ts must not add a sample of history and a tiny weight).
+    return float(round(d)) if abs(d - round(d)) < 1e-6 else d
+
+
+def samples_needed(kernel: Kernel, delay: float = 0.0) -> int:
+    """Samples of ``(y, u)`` the estimate reads: the kernel's span + 1, plus the delay's."""
+    return kernel.span + 1 + math.ceil(delay)
+
+
+def window_weights(kernel: Kernel, length: int, delay: float = 0.0) -> tuple[np.ndarray, np.ndarray]:
+    """(y-weights, u-weights) of ``kernel`` over a :class:`PairWindow` of ``length`` samples.
+
+    The y-weights end on the newest y; the u-weights end on the input that acted during the
+    newest interval: ``u_{k-1}`` without delay, ``delay`` samples older with one (a fraction
+    splits each weight between its two neighbours; module docstring). Read-only arrays.
+    """
+    wy = interleave(kernel.y_weights, None, length)
+    whole = math.floor(delay)
+    frac = delay - whole
+    wu = interleave(None, kernel.u_weights, length, u_lag=1 + whole)
+    if frac > 0.0:
+        wu = (1.0 - frac) * wu + frac * interleave(None, kernel.u_weights, length, u_lag=2 + whole)
+        wu.flags.writeable = False
+    return wy, wu
+
+
 class Estimator:
     """Sliding-window estimate of F from the measured output and the applied input.
 
@@ -41,16 +88,16 @@ class Estimator:
     merged into one vector over the interleaved window, so a sample costs one dot product.
     """
 
-    def __init__(self, kind: str, kernel: Kernel, alpha: float, window: int) -> None:
+    def __init__(self, kind: str, kernel: Kernel, alpha: float, window: int, delay: float = 0.0) -> None:
         self.kind = kind
         self.order = kernel.order
         self.window = int(window)
         self.ts = kernel.ts
         self.kernel = kernel
-        self.samples_needed = kernel.span + 1
+        self.delay = float(delay)
+        self.samples_needed = samples_needed(kernel, self.delay)
         self._ring = PairWindow(self.samples_needed)
-        self._wy = interleave(kernel.y_weights, None, self.samples_needed)
-        self._wu = interleave(None, kernel.u_weights, self.samples_needed)
+        self._wy, self._wu = window_weights(kernel, self.samples_needed, self.delay)
         self.ready = False
         self.f_hat = math.nan
         self.set_alpha(alpha)
@@ -107,11 +154,14 @@ def make_kernel(kind: str, order: int, window: int, ts: float) -> Kernel:
     return averaging_kernel(order, int(window), ts)
 
 
-def make_estimator(kind: str, order: int, alpha: float, window: int, ts: float) -> Estimator:
+def make_estimator(kind: str, order: int, alpha: float, window: int, ts: float,
+                   input_delay_s: float = 0.0) -> Estimator:
     """Build an estimator; ``window`` is N, the number of sample intervals (T = N·Ts).
 
     ``kind`` is one of :data:`ESTIMATOR_KINDS`. The one-step kind always looks back ``order``
-    intervals, whatever ``window`` says.
+    intervals, whatever ``window`` says. ``input_delay_s`` is a known input delay (module
+    docstring).
     """
     kernel = make_kernel(kind, order, window, ts)
-    return Estimator(kind, kernel, alpha, order if kind == "one-step" else int(window))
+    return Estimator(kind, kernel, alpha, order if kind == "one-step" else int(window),
+                     delay_intervals(input_delay_s, ts))

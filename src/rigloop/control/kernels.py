@@ -67,9 +67,13 @@ def _frozen(a: np.ndarray) -> np.ndarray:
 def slope_weights(n: int, ts: float) -> np.ndarray:
     """Least-squares slope of ``n+1`` equally spaced samples: ``ŷ' = Σ c_i y_i``.
 
-    ``c_i = 12·(i − n/2) / (Ts·n·(n+1)·(n+2))``. Exact for any sampled straight line; for a
-    curved signal it is the slope at the window's centre (a lag of ``n·Ts/2``). It is the
-    discrete form of the continuous kernel ``−(6/T³)(T − 2σ)``.
+    ``c_i = 12·(i − n/2) / (Ts·n·(n+1)·(n+2))``. Exact for any sampled straight line. For a
+    sampled polynomial of degree 2 it gives exactly the slope at the window's centre (a lag of
+    ``n·Ts/2``): the weights are odd about the centre, so they cancel the even ``(i − n/2)²``
+    term. From degree 3 on it does not: the odd ``(i − n/2)³`` term leaves
+    ``Σ c_i (i − n/2)³ ≠ 0``, so for other curved signals the centre slope is an approximation
+    whose error grows with the third derivative and ``n²``. It is the discrete form of the
+    continuous kernel ``−(6/T³)(T − 2σ)``.
     """
     n = _check_intervals(n, 1, "slope window")
     ts = _check_ts(ts)

@@ -236,6 +236,7 @@ class ControlLaw:
         gains: LawGains,
         *,
         f_hat: float | None = None,
+        e: float | None = None,
         de: float | None = None,
         dy: float | None = None,
         ref_deriv: float | None = None,
@@ -244,7 +245,8 @@ class ControlLaw:
 
         The request of the last inputs under the old gains is kept equal under the new gains,
         where some inputs may change with the switch (a new estimator gives a new F̂, a new model
-        order takes r'' instead of r'): pass those as keywords.
+        order takes r'' instead of r', a new input delay predicts another e): pass those as
+        keywords.
         """
         if not self._has_inputs:
             self._apply_gains(gains)
@@ -253,6 +255,8 @@ class ControlLaw:
         self._apply_gains(gains)
         if f_hat is not None:
             self._f = f_hat
+        if e is not None:
+            self._e = e
         if de is not None:
             self._de = de
         if dy is not None:

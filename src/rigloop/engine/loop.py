@@ -249,6 +249,9 @@ class Engine(SessionLifecycle, FrontEndRequests):
                         self._start_blend(y)
                 t_rel = t - self.run_t0
                 if self.open_loop is not None:           # bump tests: u from a profile, no law
+                    observe = getattr(self.open_loop, "observe", None)
+                    if observe is not None:              # a profile that holds until settled
+                        observe(t_rel, y)
                     u_req = self.open_loop(t_rel)
                 else:
                     r, dr, ddr = self.reference.at(t_rel - self.ref_origin)
@@ -382,8 +385,9 @@ class Engine(SessionLifecycle, FrontEndRequests):
         if trip is not None:
             self._trip(trip)
             return
-        if self.duration_s is not None and t_rel >= self.duration_s and self._ramp_then is None:
-            self.stop_reason = "duration reached"
+        finished = self.open_loop is not None and getattr(self.open_loop, "finished", False)
+        if (finished or self.duration_s is not None and t_rel >= self.duration_s) and self._ramp_then is None:
+            self.stop_reason = "profile finished" if finished else "duration reached"
             # headless: the session ends; with a front end: back to idle, ready to arm again
             self._ramp_down(then="complete" if self.end_when_done else "idle")
 

@@ -28,4 +28,15 @@ def control_params_from_config(cfg):
         law=c.law, order=c.order, alpha=c.alpha, kp=c.kp, ki=c.ki, kd=c.kd,
         estimator=c.estimator.kind, window_s=c.estimator.window_s,
         derivative_window_s=c.derivative_window_s, anti_windup=c.anti_windup, pid_u0=c.pid_u0,
+        input_delay_s=getattr(c, "input_delay_s", 0.0),
+        quantization_band=getattr(c, "quantization_band", 1.0),
+        resolution=_output_resolution(cfg),
     )
+
+
+def _output_resolution(cfg):
+    """The controlled channel's configured resolution (None: the controller measures it)."""
+    for channel in getattr(cfg, "channels", ()):
+        if channel.name == cfg.control.output:
+            return getattr(channel, "resolution", None)
+    return None

@@ -1,7 +1,7 @@
 """Past sessions: open a recorded session folder read-only and scroll its traces.
 
-The list shows the session folders found under the recording folder (newest first); any other
-folder can be opened too. Files are only read (through :func:`rigloop.analysis.session.load_session`,
+The list shows the session folders found under the recording folder (newest first), each with
+its outcome and how many runs (ARM … stop) it holds; any other folder can be opened too. Files are only read (through :func:`rigloop.analysis.session.load_session`,
 which also reads a session cut short by a crash); nothing here writes to a recording.
 """
 
@@ -14,6 +14,7 @@ from PyQt6.QtCore import Qt
 from PyQt6.QtWidgets import (QFileDialog, QHBoxLayout, QLabel, QListWidget, QListWidgetItem,
                              QPushButton, QSplitter, QVBoxLayout, QWidget)
 
+from rigloop.analysis.runs import listing_words
 from rigloop.gui.trace_buffer import TraceBuffer
 from rigloop.gui.trace_plots import TracePlots
 from rigloop.gui.words import CAUSE_WORDS, describe_trip, fmt_num
@@ -107,7 +108,7 @@ class PastSessions(QWidget):
         if self.root is None:
             return
         for folder in session_folders(self.root):
-            item = QListWidgetItem(folder.name)
+            item = QListWidgetItem(f"{folder.name}\n    {listing_words(folder)}")
             item.setData(Qt.ItemDataRole.UserRole, str(folder))
             item.setToolTip(str(folder))
             self.list.addItem(item)

@@ -1,7 +1,9 @@
-"""Sensor imperfections of the simulated rig: additive normal noise, then quantization.
+"""Sensor imperfections of the simulated rig: multiplicative and additive normal noise, then
+quantization.
 
 Why this order: a real converter digitises the noisy analog value, so the reported number is
-``quantum * round((true + noise) / quantum)``. Noise comes from a seeded generator, so a run is
+``quantum * round((true * (1 + rel * n1) + std * n2) / quantum)``. The multiplicative part
+models errors that grow with the value (a tach's pulse-timing jitter, a gain that wanders). Noise comes from a seeded generator, so a run is
 repeatable sample for sample.
 """
 
@@ -40,9 +42,11 @@ class SensorModel:
 
     def __init__(self, noise_std: Mapping[str, float] | None = None,
                  quantum: Mapping[str, float] | None = None, seed: int | None = 0,
-                 channels: Sequence[str] | None = None) -> None:
+                 channels: Sequence[str] | None = None,
+                 relative_std: Mapping[str, float] | None = None) -> None:
         self.noise_std = _check_table("noise_std", noise_std)
         self.quantum = _check_table("quantum", quantum)
+        self.relative_std = _check_table("relative_std", relative_std)
         self.seed = seed
         self._rng = np.random.default_rng(seed)
         self._channels: tuple[str, ...] | None = None
@@ -62,7 +66,9 @@ class SensorModel:
         self._channels = names
         self._std = np.array([self.noise_std.get(n, 0.0) for n in names])
         self._q = np.array([self.quantum.get(n, 0.0) for n in names])
+        self._rel = np.array([self.relative_std.get(n, 0.0) for n in names])
         self._has_noise = bool(np.any(self._std > 0.0))
+        self._has_rel = bool(np.any(self._rel > 0.0))
         self._quantized = self._q > 0.0
         self._q_safe = np.where(self._quantized, self._q, 1.0)
         self._noise = np.empty(len(names))
@@ -90,6 +96,11 @@ class SensorModel:
                 f"measure() got {values.shape[0] if values.ndim == 1 else values.shape} values "
                 f"for {len(self._channels)} channels {self._channels}"
             )
+        if self._has_rel:
+            # Drawn before the additive noise, and only when configured, so that a sensor
+            # without it gives the same sequence as before.
+            self._rng.standard_normal(out=self._noise)
+            values *= 1.0 + self._rel * self._noise
         if self._has_noise:
             self._rng.standard_normal(out=self._noise)
             values += self._std * self._noise

@@ -510,18 +510,29 @@ def _check_channels(sent: list[SentChannel], plant: Any) -> list[SentChannel]:
 def build_device(plant_kind: str, *, params: Mapping[str, Any] | None = None,
                  channels: Sequence[str | SentChannel] | None = None, rate_hz: float = 100.0,
                  noise: float = 1.0, seed: int = 0, faults: Sequence[str] = (),
-                 rx_observer: Callable[[dict], None] | None = None) -> SimDevice:
+                 rx_observer: Callable[[dict], None] | None = None,
+                 rig: Mapping[str, Any] | None = None,
+                 sensors: Mapping[str, Any] | None = None) -> SimDevice:
     """A device with the plant's nominal sensors (noise std scaled by ``noise``; 0 = none).
 
-    Raises ValueError (plant kind/params, channels, rate) or FaultSpecError with a message that
-    names the bad item. The sensor noise and each random fault have their own seeded streams.
+    ``rig`` and ``sensors`` are the ``device.sim.rig`` / ``device.sim.sensors`` mappings
+    (:mod:`rigloop.plants.rig_config`): imperfection layers around the plant, sensor overrides.
+    Raises ValueError (plant kind/params, rig, channels, rate) or FaultSpecError with a message
+    that names the bad item. The sensor noise, the load's random walk and each random fault
+    have their own seeded streams.
     """
     from rigloop.plants import SensorModel, make_plant
 
     if not (isinstance(rate_hz, (int, float)) and math.isfinite(rate_hz) and rate_hz > 0):
         raise ValueError(f"rate {rate_hz!r} Hz: give a positive number of samples per second")
-    plant = make_plant(plant_kind, dict(params or {}))
-    sensor = SensorModel.nominal(plant, scale=noise, seed=seed)
+    if rig or sensors:
+        from rigloop.plants.rig_config import build_rig, sensor_model
+
+        plant = build_rig(plant_kind, params, rig, seed)
+        sensor = sensor_model(plant, noise, sensors, seed)
+    else:
+        plant = make_plant(plant_kind, dict(params or {}))
+        sensor = SensorModel.nominal(plant, scale=noise, seed=seed)
     names = [c.name if isinstance(c, SentChannel) else str(c)
              for c in (channels if channels is not None else plant.channel_names)]
     _check_channels([SentChannel(n) for n in names], plant)

@@ -54,6 +54,10 @@ def sim_arguments(cfg: Any, *, rx_log: str | os.PathLike | None = None,
         args += ["--params", str(path)]
     for key, value in (sim.params or {}).items():
         args += ["--param", f"{key}={json.dumps(value)}"]     # JSON is valid YAML
+    if getattr(sim, "rig", None):
+        args += ["--rig", json.dumps(sim.rig)]          # JSON is valid YAML
+    if getattr(sim, "sensors", None):
+        args += ["--sensors", json.dumps(sim.sensors)]
     args += ["--channels", ",".join(c.name for c in cfg.channels)]
     for c in cfg.channels:
         if float(c.scale) != 1.0:
