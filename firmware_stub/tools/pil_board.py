@@ -27,14 +27,11 @@ MACHINE = "netduinoplus2"
 # QEMU prints one line per pty; serial0 is USART1 (sent to null), serial1 is USART2.
 _PTY_LINE = re.compile(r"char device redirected to (\S+) \(label serial1\)")
 _BOOT_TIMEOUT_S = 30.0
-# Raised priority where permitted (root on a CI runner). QEMU moves the host's bytes into the
-# emulated USART one per round of its main loop, each waiting for a thread to be scheduled; a
-# QEMU starved for ~0.2 s lets the pty back up until the host's serial write times out
-# (link-lost), and a real board is never starved by the host's processes. So: real-time FIFO
-# priority 21, one above the engine's own request (20, rigloop.engine.priority) and any other
-# engine on the machine; QEMU sleeps between bytes and ticks (WFI), so it takes little CPU.
-# Else nice -10, else as it is.
-_RT_PRIORITY = 21
+# Raised priority where permitted (root on a CI runner): nice -10. QEMU moves the host's bytes
+# into the emulated USART one per round of its main loop, each waiting for a thread to be
+# scheduled, so a busy machine slows the emulated board first. Not a real-time class: tried
+# (SCHED_RR 1, SCHED_FIFO 21), QEMU's own spinning then delayed the engine's serial writes past
+# their 100 ms timeout more often than a normal class did (docs/bring-up.md, section 6).
 _NICE = -10
 
 
@@ -50,11 +47,6 @@ def build_image(timeout_s: float = 300.0) -> subprocess.CompletedProcess:
 
 
 def _raise_priority() -> None:  # runs in the child between fork and exec
-    try:
-        os.sched_setscheduler(0, os.SCHED_FIFO, os.sched_param(_RT_PRIORITY))
-        return
-    except (AttributeError, OSError):
-        pass
     try:
         os.nice(_NICE)
     except OSError:

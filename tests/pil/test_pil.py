@@ -247,6 +247,6 @@ def test_open_loop_bump_test_recovers_the_on_chip_fan(board, tmp_path, capsys):
     # K * du * (1 - exp(-t / tau)) (closed form), so the fit must find K and tau, and the initial
     # slope per unit input alpha = K / tau = 60 rpm/s per %.
     assert est["order"] == 1
-    assert est["gain_fit"] == pytest.approx(FAN_GAIN_RPM_PER_PCT, rel=0.05)
+    assert est["gain"] == pytest.approx(FAN_GAIN_RPM_PER_PCT, rel=0.05)
     assert est["tau"] == pytest.approx(0.5, rel=0.10)
     assert est["alpha_fopdt"] == pytest.approx(FAN_GAIN_RPM_PER_PCT / 0.5, rel=0.10)
