@@ -27,11 +27,12 @@ MACHINE = "netduinoplus2"
 # QEMU prints one line per pty; serial0 is USART1 (sent to null), serial1 is USART2.
 _PTY_LINE = re.compile(r"char device redirected to (\S+) \(label serial1\)")
 _BOOT_TIMEOUT_S = 30.0
-# Raised priority where permitted (root on a CI runner): nice -10. QEMU moves the host's bytes
-# into the emulated USART one per round of its main loop, each waiting for a thread to be
-# scheduled, so a busy machine slows the emulated board first. Not a real-time class: tried
-# (SCHED_RR 1, SCHED_FIFO 21), QEMU's own spinning then delayed the engine's serial writes past
-# their 100 ms timeout more often than a normal class did (docs/bring-up.md, section 6).
+# QEMU's scheduling: the normal class, whatever its parent has (a test process that ran an
+# engine in-process may still hold SCHED_FIFO, and a QEMU that inherits it starves the engine's
+# next session), then nice -10 where permitted. QEMU moves the host's bytes into the emulated
+# USART one per round of its main loop, each waiting for a thread to be scheduled, so a busy
+# machine slows the emulated board first. A real-time class for QEMU was tried (SCHED_RR 1,
+# SCHED_FIFO 21): its threads then delayed the engine's serial writes past their 100 ms timeout.
 _NICE = -10
 
 
@@ -47,6 +48,10 @@ def build_image(timeout_s: float = 300.0) -> subprocess.CompletedProcess:
 
 
 def _raise_priority() -> None:  # runs in the child between fork and exec
+    try:
+        os.sched_setscheduler(0, os.SCHED_OTHER, os.sched_param(0))
+    except (AttributeError, OSError):
+        pass
     try:
         os.nice(_NICE)
     except OSError:
