@@ -18,6 +18,7 @@ from pathlib import Path
 
 from rigloop.protocol.cobs import cobs_encode
 from rigloop.protocol.crc import crc16_ccitt_false
+from rigloop.protocol.auth import AUTH_FLAG, DeviceAuth, HostAuth, SessionMac
 from rigloop.protocol.framing import encode_frame
 from rigloop.protocol.messages import (
     DEVICE_TO_HOST,
@@ -53,11 +54,21 @@ def json_float(x: float) -> float | str:
     return x
 
 
+_HELLO_EXTENSION = ("min_period_us", "max_period_us", "auth", "nonce")
+
+
 def message_json(msg) -> dict:
+    """Fields by name; the 1.1 extensions (HELLO's, QUERY's nonce) only where the message has them."""
     out: dict = {"type": msg.TYPE.name}
     for f in fields(msg):
         value = getattr(msg, f.name)
-        if isinstance(value, float):
+        if isinstance(msg, Hello) and not msg.extended and f.name in _HELLO_EXTENSION:
+            continue
+        if isinstance(msg, Query) and value is None:
+            continue
+        if isinstance(value, bytes):
+            value = value.hex()
+        elif isinstance(value, float):
             value = json_float(value)
         elif isinstance(value, tuple):
             value = [json_float(v) for v in value]
@@ -159,6 +170,11 @@ def good_vectors() -> list[dict]:
              "CONFIGURE rejected"),
         good("fault_vendor", Fault(U64, 0x8001, int(S.FAULT), -1.0), "vendor-specific fault code 0x8001"),
         good("query", Query(), "ask for HELLO"),
+        good("query_nonce", Query(bytes.fromhex("0011223344556677")),
+             "protocol 1.1: ask for HELLO and give the host's session nonce"),
+        good("hello_1_1", Hello(1, 1, 0x0101, 2, int(S.CONFIGURED), 10000, 100000, 0.0, 0.0, 100.0, "bench-fan",
+                                 100, 1_000_000, 0, bytes(8)),
+             "protocol 1.1 HELLO of an unkeyed device: supported periods 100 us .. 1 s, auth 0"),
         good("arm", Arm(), "arm the device"),
         good("configure_fan_100hz", Configure(10000, 100000, 0.0, 0.0, 100.0),
              "fan rig: 100 Hz, 100 ms watchdog, duty 0..100 %, safe 0"),
@@ -264,17 +280,72 @@ def bad_cobs_vectors() -> list[dict]:
     ]
 
 
+# Authenticated frames (docs/protocol.md §14). Key and nonces are arbitrary test values.
+AUTH_KEY = bytes(range(0x20, 0x40))                  # 32 bytes 20 21 .. 3f
+HOST_NONCE = bytes.fromhex("a0a1a2a3a4a5a6a7")
+DEVICE_NONCE = bytes.fromhex("d0d1d2d3d4d5d6d7")
+
+
+def _sealed(msg, counter: int) -> bytes:
+    return with_crc(SessionMac(AUTH_KEY, HOST_NONCE + DEVICE_NONCE).seal(encode_payload(msg), counter))
+
+
+def auth_vectors() -> list[dict]:
+    """Tagged frames of one session (key AUTH_KEY, nonces HOST_NONCE | DEVICE_NONCE)."""
+    S = Status
+    cases = [
+        ("auth_hello", Hello(1, 1, 0x0101, 2, 0, 10000, 100000, 0.0, 0.0, 100.0, "bench-fan", 100, 1_000_000,
+                             1, DEVICE_NONCE), 1, "keyed device's HELLO answering QUERY nonce a0..a7"),
+        ("auth_configure", Configure(10000, 100000, 0.0, 0.0, 100.0), 1, "host's first tagged frame"),
+        ("auth_arm", Arm(), 2, "ARM, counter 2"),
+        ("auth_command", Command(1, 0, 0.25), 3, "COMMAND, counter 3"),
+        ("auth_stop", Stop(int(StopReason.OPERATOR)), 4, "STOP, counter 4"),
+        ("auth_sample_2ch", Sample(42, 420000, int(S.ARMED | S.CONFIGURED), 37.5, 41, (1234.5, 0.75)), 2,
+         "SAMPLE, device counter 2"),
+    ]
+    out = []
+    for name, msg, counter, note in cases:
+        frame = _sealed(msg, counter)
+        out.append({"name": name, "direction": "device_to_host" if msg.TYPE in DEVICE_TO_HOST else "host_to_device",
+                    "note": note, "counter": counter, "message": message_json(msg), "frame_hex": frame.hex(),
+                    "serial_hex": (cobs_encode(frame) + b"\x00").hex()})
+    command = _sealed(Command(1, 0, 0.25), 3)
+    bad_tag = command[:-3] + bytes([command[-3] ^ 0x01])
+    other = with_crc(SessionMac(AUTH_KEY, HOST_NONCE + bytes(8)).seal(encode_payload(Command(1, 0, 0.25)), 3))
+    other_key = with_crc(SessionMac(bytes(32), HOST_NONCE + DEVICE_NONCE).seal(encode_payload(Command(1, 0, 0.25)), 3))
+    plain = encode_frame(Command(1, 0, 0.25))
+    truncated = with_crc(_sealed(Command(1, 0, 0.25), 3)[:-6])
+    for name, frame, note in (
+        ("auth_bad_tag", with_crc(bad_tag[:-2]), "auth_command with one bit of the tag flipped (CRC redone)"),
+        ("auth_other_session", other, "auth_command sealed under another device nonce: a frame of an earlier session"),
+        ("auth_other_key", other_key, "auth_command sealed with another key"),
+        ("auth_plain_on_keyed", plain, "command_first without a tag, sent to a keyed device"),
+        ("auth_truncated_tag", truncated, "auth_command with its last 4 tag bytes cut (CRC redone)"),
+    ):
+        out.append({"name": name, "direction": "host_to_device", "note": note, "frame_hex": frame.hex(),
+                    "serial_hex": (cobs_encode(frame) + b"\x00").hex(), "expect_error": "auth"})
+    return out
+
+
+def auth_section() -> dict:
+    return {"mac": "HMAC-SHA-256 truncated to 8 bytes", "key_hex": AUTH_KEY.hex(),
+            "host_nonce_hex": HOST_NONCE.hex(), "device_nonce_hex": DEVICE_NONCE.hex(),
+            "flag": AUTH_FLAG, "vectors": auth_vectors()}
+
+
 def sequence_cases() -> list[dict]:
     """Serial-number arithmetic (docs/protocol.md §5): is `seq` newer than `last`, and the gap."""
     pairs = [
         (0, 1), (1, 0), (5, 5), (0xFFFFFFFF, 0), (0, 0xFFFFFFFF), (0xFFFFFFFE, 2),
         (100, 0x8000_0063), (100, 0x8000_0064), (100, 0x8000_0065), (0, 0x7FFF_FFFF), (0, 0x8000_0000),
+        (10, 10 + 0x10000), (10, 11 + 0x10000), (0xFFFFFFF0, 0xFFF0), (0x40000000, 0x7FFFFFFF),
     ]
     out = []
     for last, seq in pairs:
         gap = (seq - last) & 0xFFFFFFFF
         newer = 0 < gap < 0x8000_0000
-        out.append({"last": last, "seq": seq, "newer": newer, "lost": gap - 1 if newer else 0})
+        accept = 0 < gap <= 0x10000
+        out.append({"last": last, "seq": seq, "newer": newer, "accept": accept, "lost": gap - 1 if accept else 0})
     return out
 
 
@@ -295,12 +366,14 @@ def cobs_cases() -> list[dict]:
 def build() -> dict:
     return {
         "protocol_version": PROTOCOL_VERSION,
+        "document_revision": "1.1",
         "crc": "CRC-16/CCITT-FALSE",
         "generated_by": "tools/make_vectors.py",
         "vectors": good_vectors() + bad_vectors() + bad_cobs_vectors(),
         "sequence_cases": sequence_cases(),
         "crc_cases": crc_cases(),
         "cobs_cases": cobs_cases(),
+        "auth": auth_section(),
     }
 
 

@@ -12,6 +12,7 @@
 #ifndef RL_DEVICE_H
 #define RL_DEVICE_H
 
+#include "rl_auth.h"
 #include "rl_cobs.h"
 #include "rl_common.h"
 #include "rl_hal.h"
@@ -50,7 +51,20 @@ typedef struct rl_device_counters {
     uint32_t watchdog_trips;
     uint32_t stops;
     uint32_t faults_sent;
+    /* protocol 1.1 (section 6.7, section 14) */
+    uint32_t foreign;                   /* frames from others while bound (rl_device_note_foreign) */
+    uint32_t binds;                     /* accepted CONFIGUREs: each binds the device to its sender */
+    uint32_t releases;                  /* bindings ended (disarmed and the host silent) */
 } rl_device_counters;
+
+/* Release time of a binding (docs/protocol.md section 6.7): disarmed and silent this long. */
+#define RL_RELEASE_US 1000000u
+/* Largest forward step of a COMMAND sequence number accepted (section 5). */
+#define RL_SEQ_MAX_JUMP 0x10000u
+
+/* Fills out[0..8) with a device nonce that never repeats (hardware RNG, or a boot counter kept
+ * in non-volatile memory followed by a session counter). */
+typedef void (*rl_nonce_fn)(void *ctx, uint8_t out[RL_NONCE_LEN]);
 
 typedef enum rl_device_init_result {
     RL_DEVICE_OK = 0,
@@ -82,6 +96,16 @@ typedef struct rl_device {
     uint32_t sample_seq;
     uint8_t last_stop_reason;
 
+    /* protocol 1.1: binding and authentication (all zero = unkeyed, as before) */
+    uint8_t bound;          /* a CONFIGURE bound the device to its sender */
+    uint8_t hello_ext;      /* answer HELLO in the 1.1 form (the QUERY carried a nonce) */
+    uint8_t keyed;          /* rl_device_set_key was called: every frame must carry a tag */
+    uint64_t bound_rx_us;   /* last accepted frame while bound */
+    rl_nonce_fn nonce_fn;
+    void *nonce_ctx;
+    rl_auth auth;
+    uint8_t rx_plain[RL_MAX_FRAME];
+
     rl_cobs_stream rx;
     uint8_t tx_frame[RL_MAX_FRAME];
     uint8_t tx_wire[RL_COBS_MAX_ENCODED(RL_MAX_FRAME) + 1u];
@@ -104,7 +128,8 @@ void rl_device_rx_bytes(rl_device *d, const uint8_t *data, size_t len);
 /*
  * Datagram transport: handle one received frame (payload + CRC, no COBS). Returns
  * RL_REJECT_NONE if the frame was valid, else the reason it was rejected (already counted).
- * A valid frame tells a datagram port which peer address to answer.
+ * A valid frame tells a datagram port which peer address to answer. While rl_device_bound is
+ * nonzero, pass on only frames from the host of the binding CONFIGURE (protocol 1.1, section 6.7).
  */
 RL_MUST_CHECK rl_reject rl_device_rx_frame(rl_device *d, const uint8_t *frame, size_t len);
 
@@ -142,5 +167,26 @@ const rl_settings *rl_device_settings(const rl_device *d);
 
 /* Diagnostic counters. */
 const rl_device_counters *rl_device_get_counters(const rl_device *d);
+
+/*
+ * Protocol 1.1, section 14: require authenticated frames under this pre-shared key (16..64 bytes)
+ * from now on. nonce_fn gives a fresh device nonce for each session. Call after rl_device_init,
+ * before the first frame arrives. Returns 0, or -1 for a bad key length or a missing nonce_fn.
+ * A port that never calls it keeps the unauthenticated behaviour.
+ */
+RL_MUST_CHECK int rl_device_set_key(rl_device *d, const uint8_t *key, size_t key_len,
+                                    rl_nonce_fn nonce_fn, void *nonce_ctx);
+
+/*
+ * Protocol 1.1, section 6.7: nonzero while a host holds the device (from a valid CONFIGURE until
+ * the device is disarmed and that host has sent nothing for RL_RELEASE_US). A datagram port
+ * passes on, while bound, only frames from the address the binding CONFIGURE came from (see
+ * counters.binds to learn when that address changes) and reports the rest with
+ * rl_device_note_foreign. A stream port (one peer) need not call it.
+ */
+int rl_device_bound(rl_device *d);
+
+/* Count a frame from someone other than the bound host; it is not acted on. */
+void rl_device_note_foreign(rl_device *d);
 
 #endif /* RL_DEVICE_H */

@@ -1,5 +1,5 @@
 /*
- * rl_proto.h - rigloop wire protocol version 1 (docs/protocol.md): message structs, frame
+ * rl_proto.h - rigloop wire protocol version 1, revision 1.1 (docs/protocol.md): message structs, frame
  * encode/decode, rejection reasons and sequence-number arithmetic.
  *
  * A frame is: version (u8), type (u8), body, CRC-16/CCITT-FALSE of the preceding bytes (u16).
@@ -39,6 +39,13 @@ typedef enum rl_msg_type {
 #define RL_CONFIGURE_BODY 20u
 #define RL_COMMAND_BODY 12u
 #define RL_STOP_BODY 1u
+/* Protocol 1.1: the forms with a session nonce (QUERY) and the extension (HELLO). */
+#define RL_QUERY_NONCE_BODY 8u
+#define RL_HELLO_EXT_BODY 59u
+#define RL_NONCE_LEN 8u
+/* HELLO auth field (1.1). */
+#define RL_AUTH_MODE_NONE 0u
+#define RL_AUTH_MODE_HMAC_SHA256_64 1u
 
 /* Status bits carried by SAMPLE (u16), FAULT (u16) and HELLO (low byte). */
 #define RL_STATUS_ARMED 0x0001u
@@ -78,6 +85,9 @@ typedef enum rl_reject {
     RL_REJECT_LENGTH,
     RL_REJECT_VALUE,
     RL_REJECT_SEQUENCE,
+    RL_REJECT_AUTH, /* 1.1: no tag, wrong tag or replayed frame on a keyed link, or a tagged frame
+                       on an unkeyed one. Checked after type and before length (section 3); last
+                       in this enum only so that the older values keep their numbers. */
     RL_REJECT_COUNT /* number of entries, not a reason */
 } rl_reject;
 
@@ -96,7 +106,20 @@ typedef struct rl_hello {
     float u_min;
     float u_max;
     char name[RL_NAME_LEN]; /* ASCII, NUL-padded, not necessarily NUL-terminated */
+    /* Protocol 1.1 extension, on the wire only when ext is nonzero (the answer to a QUERY that
+     * carried a nonce). Set ext = 0 for the 42-byte 1.0 form. */
+    uint8_t ext;
+    uint32_t min_period_us;
+    uint32_t max_period_us;
+    uint8_t auth; /* RL_AUTH_MODE_* */
+    uint8_t nonce[RL_NONCE_LEN];
 } rl_hello;
+
+/* QUERY: a 1.1 host sends its session nonce (has_nonce = 1); a 1.0 host sends no body. */
+typedef struct rl_query {
+    uint8_t has_nonce;
+    uint8_t nonce[RL_NONCE_LEN];
+} rl_query;
 
 typedef struct rl_sample {
     uint32_t seq;
@@ -138,6 +161,7 @@ typedef struct rl_msg {
     uint8_t type;
     union {
         rl_hello hello;
+        rl_query query;
         rl_sample sample;
         rl_fault fault;
         rl_configure configure;
@@ -177,7 +201,8 @@ static inline int rl_seq_newer(uint32_t a, uint32_t b)
     return d != 0u && d < 0x80000000u;
 }
 
-/* Body length a type requires (SAMPLE: for n channels); -1 for an unknown type. */
+/* Body length a type requires (SAMPLE: for n channels); -1 for an unknown type. The 1.0 lengths:
+ * a 1.1 QUERY may also carry RL_QUERY_NONCE_BODY bytes and a HELLO RL_HELLO_EXT_BODY. */
 long rl_proto_body_length(uint8_t type, uint8_t n_channels);
 
 #endif /* RL_PROTO_H */

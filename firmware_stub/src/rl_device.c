@@ -17,9 +17,16 @@ static uint64_t now_us(const rl_device *d)
 static void send_msg(rl_device *d, const rl_msg *m)
 {
     size_t wire_len = 0;
-    const size_t frame_len = rl_proto_encode(m, d->tx_frame, sizeof d->tx_frame);
+    size_t frame_len = rl_proto_encode(m, d->tx_frame, sizeof d->tx_frame);
     if (frame_len == 0u) {
         return; /* cannot happen for messages built here; nothing sensible to send */
+    }
+    if (d->keyed != 0u) {
+        /* nothing leaves a keyed device untagged: before the first session, nothing at all */
+        frame_len = rl_auth_seal(&d->auth, d->tx_frame, frame_len, sizeof d->tx_frame);
+        if (frame_len == 0u) {
+            return;
+        }
     }
     if (d->hal.transport == RL_TRANSPORT_DATAGRAM) {
         d->hal.write_bytes(d->hal.ctx, d->tx_frame, frame_len);
@@ -55,6 +62,13 @@ static void send_hello(rl_device *d)
     m.body.hello.u_max = d->active.u_max;
     for (i = 0; i < RL_NAME_LEN; ++i) {
         m.body.hello.name[i] = d->name[i];
+    }
+    m.body.hello.ext = d->hello_ext;
+    m.body.hello.min_period_us = d->config.min_period_us;
+    m.body.hello.max_period_us = d->config.max_period_us;
+    m.body.hello.auth = (uint8_t)(d->keyed != 0u ? RL_AUTH_MODE_HMAC_SHA256_64 : RL_AUTH_MODE_NONE);
+    for (i = 0; i < RL_NONCE_LEN; ++i) {
+        m.body.hello.nonce[i] = d->auth.device_nonce[i];
     }
     send_msg(d, &m);
 }
@@ -151,6 +165,44 @@ static rl_reject on_configure(rl_device *d, const rl_msg *m)
     d->have_last_seq = 0;
     d->flags = (uint16_t)(d->flags | RL_STATUS_CONFIGURED);
     d->next_tick_us = now_us(d) + d->active.period_us;
+    d->bound = 1; /* section 6.7: the sender is now the host */
+    d->bound_rx_us = now_us(d);
+    d->counters.binds++;
+    send_hello(d);
+    return RL_REJECT_NONE;
+}
+
+static int same_nonce(const uint8_t *a, const uint8_t *b)
+{
+    size_t i;
+    for (i = 0; i < RL_NONCE_LEN; ++i) {
+        if (a[i] != b[i]) {
+            return 0;
+        }
+    }
+    return 1;
+}
+
+/* QUERY: answer HELLO; a keyed device starts a session on a new host nonce unless bound. */
+static rl_reject on_query(rl_device *d, const rl_msg *m)
+{
+    const rl_query *q = &m->body.query;
+    if (d->keyed != 0u) {
+        if (q->has_nonce == 0u) {
+            count_reject(d, RL_REJECT_AUTH); /* a keyed device needs the host's nonce */
+            return RL_REJECT_AUTH;
+        }
+        if (d->auth.have_session == 0u || !same_nonce(q->nonce, d->auth.host_nonce)) {
+            uint8_t device_nonce[RL_NONCE_LEN];
+            if (d->bound != 0u) {
+                count_reject(d, RL_REJECT_AUTH); /* a host holds the device: no new session */
+                return RL_REJECT_AUTH;
+            }
+            d->nonce_fn(d->nonce_ctx, device_nonce);
+            rl_auth_start(&d->auth, q->nonce, device_nonce);
+        }
+    }
+    d->hello_ext = q->has_nonce;
     send_hello(d);
     return RL_REJECT_NONE;
 }
@@ -176,7 +228,8 @@ static rl_reject on_command(rl_device *d, const rl_msg *m)
         count_reject(d, RL_REJECT_VALUE);
         return RL_REJECT_VALUE;
     }
-    if (d->have_last_seq != 0u && !rl_seq_newer(c->seq, d->last_seq)) {
+    if (d->have_last_seq != 0u &&
+        (!rl_seq_newer(c->seq, d->last_seq) || c->seq - d->last_seq > RL_SEQ_MAX_JUMP)) {
         count_reject(d, RL_REJECT_SEQUENCE);
         return RL_REJECT_SEQUENCE;
     }
@@ -202,10 +255,44 @@ static void on_stop(rl_device *d, const rl_msg *m)
     d->counters.stops++;
 }
 
+/*
+ * Section 14: a tagged frame is opened (tag, counter) into rx_plain before it is decoded; on a
+ * keyed device the only frame accepted without a tag is a QUERY carrying a nonce.
+ */
+static rl_reject open_frame(rl_device *d, const uint8_t **frame, size_t *len)
+{
+    const uint8_t *f = *frame;
+    if (*len < RL_FRAME_OVERHEAD || f[0] != RL_PROTO_VERSION) {
+        return RL_REJECT_NONE; /* short, crc or version: rl_proto_decode names it */
+    }
+    if ((f[1] & RL_AUTH_FLAG) != 0u) {
+        size_t plain_len = 0;
+        const rl_reject r = d->keyed != 0u
+                                ? rl_auth_open(&d->auth, f, *len, d->rx_plain, sizeof d->rx_plain,
+                                               &plain_len)
+                                : rl_auth_open(&d->auth, f, *len, d->rx_plain, 0u, &plain_len);
+        if (r != RL_REJECT_NONE) {
+            return r;
+        }
+        *frame = d->rx_plain;
+        *len = plain_len;
+        return RL_REJECT_NONE;
+    }
+    if (d->keyed != 0u && !(f[1] == RL_MSG_QUERY && *len == RL_FRAME_OVERHEAD + RL_QUERY_NONCE_BODY)) {
+        rl_msg tmp;
+        const rl_reject r = rl_proto_decode(f, *len, &tmp);
+        return r != RL_REJECT_NONE ? r : RL_REJECT_AUTH;
+    }
+    return RL_REJECT_NONE;
+}
+
 static rl_reject handle_frame(rl_device *d, const uint8_t *frame, size_t len)
 {
     rl_msg m;
-    rl_reject r = rl_proto_decode(frame, len, &m);
+    rl_reject r = open_frame(d, &frame, &len);
+    if (r == RL_REJECT_NONE) {
+        r = rl_proto_decode(frame, len, &m);
+    }
     if (r != RL_REJECT_NONE) {
         count_reject(d, r);
         if (r == RL_REJECT_LENGTH && len >= RL_FRAME_OVERHEAD && frame[1] == RL_MSG_CONFIGURE) {
@@ -215,7 +302,7 @@ static rl_reject handle_frame(rl_device *d, const uint8_t *frame, size_t len)
     }
     switch (m.type) {
     case RL_MSG_QUERY:
-        send_hello(d);
+        r = on_query(d, &m);
         break;
     case RL_MSG_ARM:
         on_arm(d);
@@ -235,6 +322,9 @@ static rl_reject handle_frame(rl_device *d, const uint8_t *frame, size_t len)
     }
     if (r == RL_REJECT_NONE) {
         d->counters.frames_accepted++;
+        if (d->bound != 0u) {
+            d->bound_rx_us = now_us(d); /* only frames acted on keep the binding (section 6.7) */
+        }
     }
     return r;
 }
@@ -346,9 +436,37 @@ static void run_tick(rl_device *d, uint64_t now)
     d->flags = (uint16_t)(d->flags & ~(RL_STATUS_RX_ERROR | RL_STATUS_OVERRUN));
 }
 
+int rl_device_bound(rl_device *d)
+{
+    if (d->bound != 0u && (d->flags & RL_STATUS_ARMED) == 0u &&
+        now_us(d) - d->bound_rx_us > RL_RELEASE_US) {
+        d->bound = 0;
+        d->counters.releases++;
+    }
+    return d->bound;
+}
+
+void rl_device_note_foreign(rl_device *d)
+{
+    d->counters.foreign++;
+}
+
+int rl_device_set_key(rl_device *d, const uint8_t *key, size_t key_len, rl_nonce_fn nonce_fn,
+                      void *nonce_ctx)
+{
+    if (nonce_fn == 0 || rl_auth_set_key(&d->auth, key, key_len) != 0) {
+        return -1;
+    }
+    d->nonce_fn = nonce_fn;
+    d->nonce_ctx = nonce_ctx;
+    d->keyed = 1;
+    return 0;
+}
+
 void rl_device_poll(rl_device *d)
 {
     const uint64_t now = now_us(d);
+    (void)rl_device_bound(d); /* releases a binding that is due */
     if (now >= d->next_tick_us) {
         const uint64_t period = d->active.period_us;
         const uint64_t missed = (now - d->next_tick_us) / period;

@@ -79,6 +79,8 @@ const char *rl_reject_name(rl_reject reason)
         return "sequence";
     case RL_REJECT_VALUE:
         return "value";
+    case RL_REJECT_AUTH:
+        return "auth";
     case RL_REJECT_COUNT:
     default:
         return "?";
@@ -128,8 +130,23 @@ static void encode_body(const rl_msg *m, uint8_t *b)
         for (i = 0; i < RL_NAME_LEN; ++i) {
             b[26 + i] = (uint8_t)h->name[i];
         }
+        if (h->ext != 0u) {
+            put_u32(b + 42, h->min_period_us);
+            put_u32(b + 46, h->max_period_us);
+            b[50] = h->auth;
+            for (i = 0; i < RL_NONCE_LEN; ++i) {
+                b[51 + i] = h->nonce[i];
+            }
+        }
         break;
     }
+    case RL_MSG_QUERY:
+        if (m->body.query.has_nonce != 0u) {
+            for (i = 0; i < RL_NONCE_LEN; ++i) {
+                b[i] = m->body.query.nonce[i];
+            }
+        }
+        break;
     case RL_MSG_SAMPLE: {
         const rl_sample *s = &m->body.sample;
         put_u32(b, s->seq);
@@ -170,9 +187,21 @@ static void encode_body(const rl_msg *m, uint8_t *b)
     case RL_MSG_STOP:
         b[0] = m->body.stop.reason;
         break;
-    default: /* QUERY, ARM: no body */
+    default: /* ARM: no body */
         break;
     }
+}
+
+/* Body length of a message to encode: the 1.1 forms of HELLO and QUERY where asked for. */
+static long encoded_body_length(const rl_msg *m)
+{
+    if (m->type == RL_MSG_HELLO && m->body.hello.ext != 0u) {
+        return (long)RL_HELLO_EXT_BODY;
+    }
+    if (m->type == RL_MSG_QUERY && m->body.query.has_nonce != 0u) {
+        return (long)RL_QUERY_NONCE_BODY;
+    }
+    return rl_proto_body_length(m->type, m->type == RL_MSG_SAMPLE ? m->body.sample.n : 0u);
 }
 
 size_t rl_proto_encode(const rl_msg *m, uint8_t *frame, size_t cap)
@@ -184,7 +213,7 @@ size_t rl_proto_encode(const rl_msg *m, uint8_t *frame, size_t cap)
     if (m->type == RL_MSG_SAMPLE && m->body.sample.n > RL_MAX_CHANNELS) {
         return 0;
     }
-    body = rl_proto_body_length(m->type, m->type == RL_MSG_SAMPLE ? m->body.sample.n : 0u);
+    body = encoded_body_length(m);
     if (body < 0) {
         return 0;
     }
@@ -200,7 +229,7 @@ size_t rl_proto_encode(const rl_msg *m, uint8_t *frame, size_t cap)
     return total;
 }
 
-static void decode_body(uint8_t type, const uint8_t *b, rl_msg *out)
+static void decode_body(uint8_t type, const uint8_t *b, size_t body_len, rl_msg *out)
 {
     size_t i;
     out->type = type;
@@ -220,8 +249,21 @@ static void decode_body(uint8_t type, const uint8_t *b, rl_msg *out)
         for (i = 0; i < RL_NAME_LEN; ++i) {
             h->name[i] = (char)b[26 + i];
         }
+        h->ext = body_len == RL_HELLO_EXT_BODY ? 1u : 0u;
+        h->min_period_us = h->ext != 0u ? get_u32(b + 42) : 0u;
+        h->max_period_us = h->ext != 0u ? get_u32(b + 46) : 0u;
+        h->auth = h->ext != 0u ? b[50] : (uint8_t)RL_AUTH_MODE_NONE;
+        for (i = 0; i < RL_NONCE_LEN; ++i) {
+            h->nonce[i] = h->ext != 0u ? b[51 + i] : 0u;
+        }
         break;
     }
+    case RL_MSG_QUERY:
+        out->body.query.has_nonce = body_len == RL_QUERY_NONCE_BODY ? 1u : 0u;
+        for (i = 0; i < RL_NONCE_LEN; ++i) {
+            out->body.query.nonce[i] = out->body.query.has_nonce != 0u ? b[i] : 0u;
+        }
+        break;
     case RL_MSG_SAMPLE: {
         rl_sample *s = &out->body.sample;
         s->seq = get_u32(b);
@@ -299,10 +341,12 @@ rl_reject rl_proto_decode(const uint8_t *frame, size_t len, rl_msg *out)
     if (expected < 0) {
         return RL_REJECT_TYPE;
     }
-    if (body_len != (size_t)expected) {
+    if (body_len != (size_t)expected &&
+        !(frame[1] == RL_MSG_QUERY && body_len == RL_QUERY_NONCE_BODY) &&
+        !(frame[1] == RL_MSG_HELLO && body_len == RL_HELLO_EXT_BODY)) {
         return RL_REJECT_LENGTH;
     }
-    decode_body(frame[1], frame + 2, out);
+    decode_body(frame[1], frame + 2, body_len, out);
     return RL_REJECT_NONE;
 }
 

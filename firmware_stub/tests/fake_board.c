@@ -116,6 +116,16 @@ int fake_pop(fake_board *b, rl_msg *out)
         memcpy(frame, p, len);
         flen = len;
     }
+    if (flen >= 2u && (frame[1] & RL_AUTH_FLAG) != 0u && b->opener != NULL) {
+        uint8_t plain[FAKE_PACKET_CAP];
+        size_t plain_len = 0;
+        if (rl_auth_open(b->opener, frame, flen, plain, sizeof plain, &plain_len) != RL_REJECT_NONE) {
+            rlt_fail(__FILE__, __LINE__, "device sent a tagged frame that does not open", "");
+            return 0;
+        }
+        memcpy(frame, plain, plain_len);
+        flen = plain_len;
+    }
     if (rl_proto_decode(frame, flen, out) != RL_REJECT_NONE) {
         rlt_fail(__FILE__, __LINE__, "device sent a frame that does not decode", "");
         return 0;

@@ -22,6 +22,7 @@ typedef struct fake_board {
     size_t head; /* next packet to read */
     size_t tail; /* next free slot */
     unsigned lost_packets;
+    rl_auth *opener; /* when set, fake_pop opens tagged frames with it (a keyed host) */
 } fake_board;
 
 void fake_board_init(fake_board *b, rl_transport transport, uint64_t start_us);

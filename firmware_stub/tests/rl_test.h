@@ -66,5 +66,6 @@ void run_proto_tests(void);
 void run_vector_tests(void);
 void run_device_tests(void);
 void run_fault_injection_tests(void);
+void run_auth_tests(void);
 
 #endif /* RL_TEST_H */

@@ -336,9 +336,14 @@ static void device_sequence_rules(void)
     command(8, rl_nan());
     CHECK_EQ_U(counters()->rejected[RL_REJECT_SEQUENCE], 2u);
     CHECK_EQ_U(counters()->rejected[RL_REJECT_VALUE], 1u);
-    /* a jump forward by up to 2^31 - 1 is fine, and so is the wrap from 0xFFFFFFFF to 0 */
-    command(10u + 0x7FFFFFFFu, 19.0f);
+    /* protocol 1.1 section 5: a jump forward by up to 0x10000 is fine, one more is implausible
+     * (rejected, not taken); the wrap from 0xFFFFFFFF to 0 is fine */
+    command(10u + 0x10001u, 18.0f);
+    CHECK_EQ_U(counters()->rejected[RL_REJECT_SEQUENCE], 3u);
+    command(10u + 0x10000u, 19.0f);
     CHECK_EQ_F(fake_tick(&dev, &board).applied, 19.0f);
+    configure_default(); /* the first COMMAND after it may carry any number */
+    arm();
     command(0xFFFFFFFFu, 20.0f);
     CHECK_EQ_F(fake_tick(&dev, &board).applied, 20.0f);
     command(0u, 21.0f);
@@ -347,16 +352,16 @@ static void device_sequence_rules(void)
     CHECK_EQ_U(s.last_cmd_seq, 0u);
     /* a jump of 2^31 or more counts as older */
     command(0x80000000u, 22.0f);
-    CHECK_EQ_U(counters()->rejected[RL_REJECT_SEQUENCE], 3u);
+    CHECK_EQ_U(counters()->rejected[RL_REJECT_SEQUENCE], 4u);
     /* the first COMMAND after a CONFIGURE is always accepted, even with an older number */
     configure_default();
     arm();
     command(5u, 30.0f);
-    CHECK_EQ_U(counters()->rejected[RL_REJECT_SEQUENCE], 3u);
+    CHECK_EQ_U(counters()->rejected[RL_REJECT_SEQUENCE], 4u);
     CHECK_EQ_F(fake_tick(&dev, &board).applied, 30.0f);
     m = msg_command(4u, 4u, 31.0f);
     (void)fake_send(&dev, &board, &m);
-    CHECK_EQ_U(counters()->rejected[RL_REJECT_SEQUENCE], 4u);
+    CHECK_EQ_U(counters()->rejected[RL_REJECT_SEQUENCE], 5u);
 }
 
 static void device_rejects_non_finite_command(void)

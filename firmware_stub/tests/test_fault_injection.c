@@ -9,6 +9,19 @@
 #include "rl_crc.h"
 #include "rl_test.h"
 
+/* Encode m, seal it when the host end has a session, deliver it as a COBS frame. */
+static void send_sealed(rl_device *d, rl_auth *host, const rl_msg *m)
+{
+    uint8_t frame[RL_MAX_FRAME], wire[RL_COBS_MAX_ENCODED(RL_MAX_FRAME) + 1u];
+    size_t n = rl_proto_encode(m, frame, sizeof frame), wn = 0;
+    if (host->have_session) {
+        n = rl_auth_seal(host, frame, n, sizeof frame);
+    }
+    CHECK(rl_cobs_encode(frame, n, wire, sizeof wire - 1u, &wn) == RL_COBS_OK);
+    wire[wn++] = 0;
+    rl_device_rx_bytes(d, wire, wn);
+}
+
 enum { DAMAGE_NONE = 0, DAMAGE_DROP, DAMAGE_FLIP, DAMAGE_INSERT_ZERO, DAMAGE_INSERT_BYTE };
 
 /* Copy src to dst with one random fault in it; returns the new length. */
@@ -113,10 +126,22 @@ static void stream_decoder_recovers_from_damage(void)
     CHECK(!out_of_order);
 }
 
-static void device_survives_damaged_command_stream(void)
+static void fixed_nonce(void *ctx, uint8_t out[RL_NONCE_LEN])
+{
+    size_t i;
+    (void)ctx;
+    for (i = 0; i < RL_NONCE_LEN; ++i) {
+        out[i] = (uint8_t)(0xA0u + i);
+    }
+}
+
+/* keyed: the same damaged stream on an authenticated link (docs/protocol.md section 14). */
+static void damaged_command_stream(int keyed)
 {
     static fake_board board;
     static rl_device dev;
+    static rl_auth host;
+    static const uint8_t key[32] = {0x42, 0x17, 0x99};
     rl_device_config cfg = fake_device_config();
     rl_hal hal;
     rl_msg m;
@@ -132,19 +157,37 @@ static void device_survives_damaged_command_stream(void)
     hal = fake_board_hal(&board);
     CHECK(rl_device_init(&dev, &hal, &cfg) == RL_DEVICE_OK);
     rl_device_rx_byte(&dev, 0x00);
+    memset(&host, 0, sizeof host);
+    if (keyed) {
+        uint8_t nonce[RL_NONCE_LEN] = {1, 2, 3, 4, 5, 6, 7, 8};
+        CHECK(rl_device_set_key(&dev, key, sizeof key, fixed_nonce, 0) == 0);
+        memset(&m, 0, sizeof m);
+        m.type = RL_MSG_QUERY;
+        m.body.query.has_nonce = 1;
+        memcpy(m.body.query.nonce, nonce, sizeof nonce);
+        (void)fake_send(&dev, &board, &m);
+        CHECK(rl_auth_set_key(&host, key, sizeof key) == 0);
+        rl_auth_start(&host, nonce, dev.auth.device_nonce);
+        host.rx_counter = 1u;       /* the HELLO answering the QUERY carried counter 1 */
+        board.opener = &host;
+    }
     m = msg_configure(1000, 1000000, 0.0f, 0.0f, 100.0f);
-    (void)fake_send(&dev, &board, &m);
+    send_sealed(&dev, &host, &m);
     m = msg_simple(RL_MSG_ARM);
-    (void)fake_send(&dev, &board, &m);
+    send_sealed(&dev, &host, &m);
+    CHECK_EQ_U(rl_device_status(&dev) & RL_STATUS_ARMED, RL_STATUS_ARMED);
 
     for (seq = 1; seq <= 800; ++seq) {
-        uint8_t frame[RL_MAX_FRAME], wire[64], bad[80];
+        uint8_t frame[RL_MAX_FRAME], wire[96], bad[112];
         size_t n, wn = 0, bn;
         const float value = (float)(seq % 100u); /* the value encodes the sequence number */
         rl_sample s;
         const int kind = (rlt_rand(&rng) % 5u == 0u) ? (int)(1u + rlt_rand(&rng) % 4u) : 0;
         m = msg_command(seq, seq, value);
         n = rl_proto_encode(&m, frame, sizeof frame);
+        if (keyed) {
+            n = rl_auth_seal(&host, frame, n, sizeof frame);
+        }
         CHECK(rl_cobs_encode(frame, n, wire, sizeof wire - 1u, &wn) == RL_COBS_OK);
         wire[wn++] = 0;
         if (kind != 0) {
@@ -178,8 +221,19 @@ static void device_survives_damaged_command_stream(void)
     CHECK_EQ_U(rl_device_status(&dev) & RL_STATUS_ARMED, RL_STATUS_ARMED);
 }
 
+static void device_survives_damaged_command_stream(void)
+{
+    damaged_command_stream(0);
+}
+
+static void keyed_device_survives_damaged_command_stream(void)
+{
+    damaged_command_stream(1);
+}
+
 void run_fault_injection_tests(void)
 {
     RUN(stream_decoder_recovers_from_damage);
     RUN(device_survives_damaged_command_stream);
+    RUN(keyed_device_survives_damaged_command_stream);
 }

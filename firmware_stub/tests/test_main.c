@@ -71,5 +71,6 @@ int main(void)
     run_vector_tests();
     run_device_tests();
     run_fault_injection_tests();
+    run_auth_tests();
     return rlt_summary();
 }

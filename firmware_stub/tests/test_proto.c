@@ -288,8 +288,8 @@ static void proto_sequence_arithmetic(void)
 
 static void proto_reject_names_match_doc(void)
 {
-    static const char *const names[] = {"none", "cobs", "short", "crc", "version",
-                                        "type", "length", "value", "sequence"};
+    static const char *const names[] = {"none",   "cobs",  "short", "crc",      "version",
+                                        "type",   "length", "value", "sequence", "auth"};
     int r;
     for (r = 0; r < (int)RL_REJECT_COUNT; ++r) {
         CHECK(strcmp(rl_reject_name((rl_reject)r), names[r]) == 0);

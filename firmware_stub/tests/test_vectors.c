@@ -17,6 +17,16 @@ static fake_board board;
 static rl_device dev;
 
 /* The value of a named field of a decoded message, as raw bits, for comparison with a vector. */
+static uint64_t nonce_u64(const uint8_t *p)
+{
+    uint64_t v = 0;
+    int i;
+    for (i = 7; i >= 0; --i) {
+        v = (v << 8) | p[i];
+    }
+    return v;
+}
+
 static int field_bits(const rl_msg *m, const rlv_field *f, uint64_t *u, uint32_t *fb,
                       const char **text)
 {
@@ -37,6 +47,10 @@ static int field_bits(const rl_msg *m, const rlv_field *f, uint64_t *u, uint32_t
         if (strcmp(n, "u_min") == 0) { b.f = h->u_min; *fb = b.u; return 1; }
         if (strcmp(n, "u_max") == 0) { b.f = h->u_max; *fb = b.u; return 1; }
         if (strcmp(n, "name") == 0) { *text = h->name; return 1; }
+        if (strcmp(n, "min_period_us") == 0) { *u = h->min_period_us; return 1; }
+        if (strcmp(n, "max_period_us") == 0) { *u = h->max_period_us; return 1; }
+        if (strcmp(n, "auth") == 0) { *u = h->auth; return 1; }
+        if (strcmp(n, "nonce") == 0) { *u = nonce_u64(h->nonce); return 1; }
         break;
     }
     case RL_MSG_SAMPLE: {
@@ -80,6 +94,12 @@ static int field_bits(const rl_msg *m, const rlv_field *f, uint64_t *u, uint32_t
     }
     case RL_MSG_STOP:
         if (strcmp(n, "reason") == 0) { *u = m->body.stop.reason; return 1; }
+        break;
+    case RL_MSG_QUERY:
+        if (strcmp(n, "nonce") == 0 && m->body.query.has_nonce) {
+            *u = nonce_u64(m->body.query.nonce);
+            return 1;
+        }
         break;
     default:
         break;

@@ -22,14 +22,16 @@ TYPES = {
     "QUERY": 0x10, "ARM": 0x11, "CONFIGURE": 0x12, "COMMAND": 0x13, "STOP": 0x14,
 }
 
-# Field kinds: "u" unsigned integer, "f" binary32 float, "t" 16-byte NUL-padded text, "fa" float array.
+# Field kinds: "u" unsigned integer, "f" binary32 float, "t" 16-byte NUL-padded text, "fa" float array,
+# "n" 8-byte nonce given as hex (compared as a little-endian u64).
 FIELDS = {
     "HELLO": {"proto_min": "u", "proto_max": "u", "fw_version": "u", "n_channels": "u", "status": "u",
-              "period_us": "u", "watchdog_us": "u", "safe": "f", "u_min": "f", "u_max": "f", "name": "t"},
+              "period_us": "u", "watchdog_us": "u", "safe": "f", "u_min": "f", "u_max": "f", "name": "t",
+              "min_period_us": "u", "max_period_us": "u", "auth": "u", "nonce": "n"},
     "SAMPLE": {"seq": "u", "t_us": "u", "status": "u", "applied": "f", "last_cmd_seq": "u", "n": "u",
                "channels": "fa"},
     "FAULT": {"t_us": "u", "code": "u", "status": "u", "value": "f"},
-    "QUERY": {},
+    "QUERY": {"nonce": "n"},
     "ARM": {},
     "CONFIGURE": {"period_us": "u", "watchdog_us": "u", "safe": "f", "u_min": "f", "u_max": "f"},
     "COMMAND": {"seq": "u", "answers": "u", "value": "f"},
@@ -104,7 +106,12 @@ def field_rows(vname: str, message: dict) -> tuple[str, list[str]]:
             print(f"vectors_to_c: note: {where} is not a field this script knows; not checked field by field",
                   file=sys.stderr)
             continue
-        if kind == "u":
+        if kind == "n":
+            raw = hex_bytes(value, where)
+            if raw is None or len(raw) != 8:
+                raise VectorError(f"{where}: expected 8 bytes of hex")
+            rows.append(f'{{"{key}", -1, RLV_UINT, {int.from_bytes(raw, "little")}ull, 0u, 0, 0}}')
+        elif kind == "u":
             if isinstance(value, bool) or not isinstance(value, int) or value < 0:
                 print(f"vectors_to_c: note: {where}={value!r} is not a non-negative integer; not checked",
                       file=sys.stderr)
@@ -221,8 +228,38 @@ def generate(doc: dict) -> str:
     out.append("};")
     out.append(f"#define RLV_SEQ_COUNT {len(seq_rows)}u")
     out.append("")
+    out.extend(auth_section(doc.get("auth")))
     out.append("#endif /* RL_VECTORS_H */")
     return "\n".join(out) + "\n"
+
+
+def auth_section(auth) -> list[str]:
+    """Authenticated-frame vectors (docs/protocol.md section 14): key, nonces, tagged frames."""
+    out = ["typedef struct rlv_auth_case { const char *name; int to_device; uint32_t counter;"
+           " const uint8_t *frame; size_t len; int bad; } rlv_auth_case;"]
+    if not isinstance(auth, dict):
+        out += ["static const uint8_t rlv_auth_key[] = {0x00};", "#define RLV_AUTH_KEY_LEN 0u",
+                "static const uint8_t rlv_auth_host_nonce[8] = {0};", "static const uint8_t rlv_auth_device_nonce[8] = {0};",
+                "static const rlv_auth_case rlv_auth_cases[] = {{0, 0, 0u, 0, 0u, 0}};", "#define RLV_AUTH_COUNT 0u"]
+        return out
+    key = hex_bytes(auth.get("key_hex"), "auth.key_hex") or b""
+    out.append(c_bytes("rlv_auth_key", key))
+    out.append(f"#define RLV_AUTH_KEY_LEN {len(key)}u")
+    out.append(c_bytes("rlv_auth_host_nonce", hex_bytes(auth.get("host_nonce_hex"), "auth.host_nonce_hex") or b""))
+    out.append(c_bytes("rlv_auth_device_nonce", hex_bytes(auth.get("device_nonce_hex"), "auth.device_nonce_hex") or b""))
+    rows = []
+    for i, vec in enumerate(auth.get("vectors", []) or []):
+        frame = hex_bytes(vec.get("frame_hex"), f"auth vector {i} frame_hex") or b""
+        out.append(c_bytes(f"rlv_auth_frame_{i}", frame))
+        bad = "expect_error" in vec
+        rows.append(f"    {{{c_string(str(vec.get('name', i)))}, {int(vec.get('direction') == 'host_to_device')}, "
+                    f"{int(vec.get('counter', 0))}u, rlv_auth_frame_{i}, {len(frame)}u, {int(bad)}}},")
+    out.append("static const rlv_auth_case rlv_auth_cases[] = {")
+    out.extend(rows or ["    {0, 0, 0u, 0, 0u, 0},"])
+    out.append("};")
+    out.append(f"#define RLV_AUTH_COUNT {len(rows)}u")
+    out.append("")
+    return out
 
 
 def main(argv: list[str]) -> int:

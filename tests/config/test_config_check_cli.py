@@ -17,8 +17,30 @@ def test_shipped_configs_pass_without_warnings(run_cli, name):
     code, out, err = run_cli("check", str(CONFIGS / name))
     assert code == 0, err
     assert out.startswith(f"{CONFIGS / name}: valid")
-    assert "no warnings" in out and "WARNING" not in out
+    if name == "template_udp.yaml":
+        # a device on the network without a key: the one warning is the link's (protocol.md §14)
+        warnings = [line for line in out.splitlines() if line.startswith("WARNING")]
+        assert "1 warning" in out and len(warnings) == 1 and "link authentication" in warnings[0]
+    else:
+        assert "no warnings" in out and "WARNING" not in out
     assert err == ""
+
+
+def test_check_warns_for_a_network_device_without_a_key_and_not_with_one(run_cli, tmp_path):
+    text = (CONFIGS / "template_udp.yaml").read_text(encoding="utf-8")
+    key = tmp_path / "rig.key"
+    key.write_text("00112233445566778899aabbccddeeff\n", encoding="ascii")
+    key.chmod(0o600)
+    keyed = tmp_path / "keyed.yaml"
+    keyed.write_text(text.replace("  # auth:\n  #   key_file: rig.key", f"  auth:\n    key_file: {key}"),
+                     encoding="utf-8")
+    code, out, err = run_cli("check", str(keyed))
+    assert code == 0, err
+    assert "no warnings" in out and "HMAC-SHA-256/64" in out
+    key.chmod(0o644)
+    code, out, err = run_cli("check", str(keyed))
+    assert code == 2 and "device.auth.key_file" in err and f"chmod 600 {key}" in err
+    assert "Traceback" not in err
 
 
 def test_demo_configs_are_what_they_say(run_cli):

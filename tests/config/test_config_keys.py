@@ -80,6 +80,8 @@ CASES: dict[str, tuple[str, object, object, dict]] = {
     "device.udp.port": ("device.udp.port", 5000, 0, {}),
     "device.udp.local_host": ("device.udp.local_host", "0.0.0.0", 5, {}),
     "device.udp.local_port": ("device.udp.local_port", 40000, 70000, {}),
+    "device.auth": ("device.auth", {"key_file": None}, "rig.key", {}),
+    "device.auth.key_file": ("device.auth.key_file", "rig.key", "missing.key", {}),
     "device.serial": ("device.serial", {"baud": 115200}, "COM3", {}),
     "device.serial.port": ("device.serial.port", "COM3", "", {}),
     "device.serial.baud": ("device.serial.baud", 115200, 0, {}),
@@ -154,13 +156,16 @@ CASES: dict[str, tuple[str, object, object, dict]] = {
     "plan": ("plan", PLAN, 3, {}),
 }
 
-_FILE_KEYS = {"reference.file", "device.sim.params_file"}
+_FILE_KEYS = {"reference.file", "device.sim.params_file", "device.auth.key_file"}
 
 
 @pytest.fixture
 def rig_dir(tmp_path: Path) -> Path:
     (tmp_path / "profile.csv").write_text("t,r\n0,1000\n5,1500\n10,1200\n", encoding="utf-8")
     (tmp_path / "fan_params.yaml").write_text("supply_v: 12.0\n", encoding="utf-8")
+    key = tmp_path / "rig.key"
+    key.write_text("00112233445566778899aabbccddeeff\n", encoding="ascii")
+    key.chmod(0o600)
     return tmp_path
 
 

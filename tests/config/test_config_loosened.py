@@ -48,7 +48,12 @@ def test_defaults_and_values_at_the_thresholds_do_not_warn(values):
 def test_shipped_configs_do_not_loosen_anything(run_cli):
     for path in sorted((Path(__file__).parents[2] / "configs").glob("*.yaml")):
         code, out, _ = run_cli("check", str(path))
-        assert code == 0 and "WARNING" not in out, path
+        warnings = [line for line in out.splitlines() if "WARNING" in line]
+        if path.name == "template_udp.yaml":
+            # a network device without a key (protocol 1.1 §14): the one warning a user must see
+            # until the copy names its key file; nothing loosened
+            warnings = [w for w in warnings if "link authentication" not in w]
+        assert code == 0 and warnings == [], path
 
 
 def test_other_commands_print_the_finding_as_config_warning(tmp_path, capsys):

@@ -263,7 +263,14 @@ def test_udp_addresses():
     found = problems(with_values(base(), {"device.udp.host": "10.0.0.5:47800"}))
     assert "device.udp.port" in found["device.udp.host"]
     remote = with_values(base(), {"device.link": "udp", "device.udp.host": "10.0.0.5"})
-    assert valid(remote).device.udp.local_host == "0.0.0.0"
+    # protocol 1.1: listen only on the interface that routes to the device; every interface only
+    # where this computer has no route to it
+    from rigloop.config.schema import interface_towards
+
+    assert valid(remote).device.udp.local_host == (interface_towards("10.0.0.5") or "0.0.0.0")
+    assert valid(remote).device.udp.local_host != "127.0.0.1"
+    named = with_values(base(), {"device.link": "udp", "device.udp.host": "rig.example"})
+    assert valid(named).device.udp.local_host == "0.0.0.0"        # no DNS while reading a config
     found = problems(with_values(remote, {"device.udp.local_host": "127.0.0.1"}))
     assert "cannot reach" in found["device.udp.local_host"]
     local = valid(with_values(base(), {"device.link": "udp"}))

@@ -104,3 +104,117 @@ def test_limit_trip_stops_the_c_stub(tmp_path, stub_binary):
     assert s.samples.level[i] > 40 and (s.samples.level[:i] <= 40).all()
     assert (s.samples.u[i + 1:] == 0).all()                     # the stub went safe at once
     assert (s.samples.status[i + 1:] & 2).all()                 # and latched STOP (docs/protocol.md §4.3)
+
+
+# --- protocol 1.1: binding and authenticated frames against the C host port --------------------
+
+FOREIGN_SENDER = r"""
+import socket, struct, sys, binascii, time
+port = int(sys.argv[1])
+s = socket.socket(socket.AF_INET, socket.SOCK_DGRAM)
+def frame(payload):
+    return payload + struct.pack("<H", binascii.crc_hqx(payload, 0xFFFF))
+seq = 1
+print("sending", flush=True)
+while True:
+    s.sendto(frame(bytes([1, 0x11])), ("127.0.0.1", port))                                  # ARM
+    s.sendto(frame(struct.pack("<BBIIf", 1, 0x13, seq, 0, 100.0)), ("127.0.0.1", port))     # COMMAND 100 %
+    s.sendto(frame(struct.pack("<BBIIfff", 1, 0x12, 10000, 100000, 100.0, 100.0, 100.0)), ("127.0.0.1", port))
+    seq += 1
+    time.sleep(0.001)    # a pace, not a synchronisation
+"""
+
+
+def _stub_summary(proc) -> dict:
+    proc.terminate()
+    _, err = proc.communicate(timeout=10)
+    line = next(ln for ln in err.splitlines() if "stopped;" in ln)
+    return {k: int(v) for k, v in __import__("re").findall(r"(foreign|binds|releases) (\d+)", line)}
+
+
+def test_a_foreign_process_cannot_drive_the_c_stub(tmp_path, stub_binary):
+    """The host configures first (it holds the rig), then a foreign local process floods the
+    stub's port with ARM, COMMAND 100 % and CONFIGURE for the rest of the run."""
+    import os
+    import sys as _sys
+    import time
+
+    proc, addr = start_stub(stub_binary, "--udp", "127.0.0.1:0")
+    host, port = addr.rsplit(":", 1)
+    cfg = stub_config(tmp_path, {"link": "udp", "udp": {"host": host, "port": int(port)}})
+    env = {**os.environ, "PYTHONPATH": str(REPO / "src")}
+    # wide timing margins: the claim is about commands, and a shared machine may starve the stub
+    run = subprocess.Popen([_sys.executable, "-m", "rigloop", "run", str(cfg), "--quiet", "--set",
+                            "limits.stale_periods=200", "--set", "device.watchdog_ms=2000"],
+                           stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env)
+    sender = None
+    try:
+        deadline = time.monotonic() + 60
+        sessions = tmp_path / "sessions"
+        while not (sessions.exists() and any(sessions.glob("*/samples.csv"))
+                   and next(sessions.glob("*/samples.csv")).stat().st_size > 2000):
+            assert time.monotonic() < deadline and run.poll() is None, "the run did not start"
+            time.sleep(0.05)
+        sender = subprocess.Popen([_sys.executable, "-c", FOREIGN_SENDER, port], stdout=subprocess.PIPE, text=True)
+        assert sender.stdout.readline().strip() == "sending"
+        out, err = run.communicate(timeout=240)
+    finally:
+        if sender is not None:
+            sender.kill()
+            sender.wait()
+            sender.stdout.close()
+        if run.poll() is None:
+            run.kill()
+        counts = _stub_summary(proc)
+    assert run.returncode == 0, out + err
+    assert counts["foreign"] > 100 and counts["binds"] == 1
+    s = Session(next((tmp_path / "sessions").iterdir()))
+    assert (s.samples.u <= s.samples.u_cmd.max() + 1e-4).all()      # applied never exceeds the host's command
+    running = s.samples[s.samples.state == "running"]
+    assert np.allclose(running.u.to_numpy()[1:], running.u_cmd.to_numpy()[:-1], atol=1e-4)
+
+
+def _key_files(tmp_path):
+    out = []
+    for name, key in (("rig.key", bytes(range(32))), ("other.key", bytes(range(5, 37)))):
+        path = tmp_path / name
+        path.write_text(key.hex() + "\n")
+        path.chmod(0o600)
+        out.append(path)
+    return out
+
+
+@pytest.mark.parametrize("transport", ["udp", "pty"])
+def test_keyed_c_stub_runs_with_the_key_and_refuses_a_missing_or_wrong_one(tmp_path, stub_binary, transport):
+    key, other = _key_files(tmp_path)
+    if transport == "udp":
+        proc, addr = start_stub(stub_binary, "--udp", "127.0.0.1:0", "--key-file", str(key))
+        host, port = addr.rsplit(":", 1)
+        block = {"link": "udp", "udp": {"host": host, "port": int(port)}}
+    else:   # a serial line: one peer, and the stub's start-up HELLO went out before its key was set
+        proc, path = start_stub(stub_binary, "--pty", "--key-file", str(key))
+        block = {"link": "serial", "serial": {"port": path, "baud": 115200}}
+    cfg = stub_config(tmp_path, block)
+    from rigloop.cli import main
+
+    try:
+        code, s = _run(cfg, f"device.auth.key_file={key}", "limits.stale_periods=200", "device.watchdog_ms=2000")
+        missing = main(["run", str(cfg), "--quiet", "--duration", "1"])
+        wrong = main(["run", str(cfg), "--quiet", "--duration", "1", "--set", f"device.auth.key_file={other}"])
+    finally:
+        _stub_summary(proc)
+    assert code == 0, s.meta
+    assert s.meta["summary"]["authenticated"] is True
+    assert missing == 1 and wrong == 1
+    folders = sorted((tmp_path / "sessions").iterdir())
+    reasons = [yaml.safe_load((f / "session.yaml").read_text())["stop_reason"] for f in folders[1:]]
+    assert "requires authenticated frames" in reasons[0]
+    assert "does not match this host's key" in reasons[1]
+
+
+def test_c_stub_refuses_a_key_file_others_can_read(tmp_path, stub_binary):
+    key, _ = _key_files(tmp_path)
+    key.chmod(0o644)
+    res = subprocess.run([str(stub_binary), "--udp", "127.0.0.1:0", "--key-file", str(key)],
+                         capture_output=True, text=True, timeout=30)
+    assert res.returncode == 2 and f"chmod 600 {key}" in res.stderr

@@ -54,5 +54,20 @@ def test_lockstep_simulation_does_not_ask(tmp_path, capsys, monkeypatch):
 
     monkeypatch.setattr("rigloop.engine.priority._raise", fake_raise)
     code, console, meta = _run(tmp_path, capsys, "device.sim.clock=lockstep")
-    assert code == 0 and asked == [False] and meta["scheduling"]["asked"] == "none"
+    assert code == 0 and asked == [] and meta["scheduling"]["asked"] == "none"
+    assert meta["scheduling"]["obtained"] == "normal"
     assert "lockstep" in meta["scheduling"]["result"]
+
+
+def test_an_engine_run_in_process_gives_its_priority_back(tmp_path, capsys):
+    """An engine inside another process (a script, the tests) must not leave that process, or
+    the children it starts later, at a raised priority that starves the machine."""
+    import os
+
+    before = (os.sched_getscheduler(0), os.sched_getparam(0).sched_priority,
+              os.getpriority(os.PRIO_PROCESS, 0))
+    code, console, meta = _run(tmp_path, capsys)
+    assert code == 0 and meta["scheduling"]["asked"] == "SCHED_FIFO"
+    after = (os.sched_getscheduler(0), os.sched_getparam(0).sched_priority,
+             os.getpriority(os.PRIO_PROCESS, 0))
+    assert after == before

@@ -275,7 +275,7 @@ def _check_clean_exit(code: int, err: str, link) -> None:
     summary = re.search(r"rl_host_device: stopped;.*", err)
     assert summary, err[-3000:]
     rejected = {name: int(n) for name, n in re.findall(r"rejected (\w+) (\d+)", summary.group(0))}
-    assert set(rejected) == {"cobs", "short", "crc", "version", "type", "length", "sequence", "value"}
+    assert set(rejected) == {"cobs", "short", "crc", "version", "type", "length", "sequence", "value", "auth"}
     assert sum(rejected.values()) == 0, summary.group(0)
     dropped = int(re.search(r"bytes dropped (\d+)", summary.group(0)).group(1))
     if dropped == 0 and link is not None:

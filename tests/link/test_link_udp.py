@@ -73,13 +73,13 @@ def test_recv_waits_for_a_late_datagram(link, device):
 
     def late_sender():
         ready.wait(WAIT)
-        device.sendto(encode_frame(Query()), link.local_address)
+        device.sendto(encode_frame(sample(7)), link.local_address)
 
     thread = threading.Thread(target=late_sender)
     thread.start()
     ready.set()
     try:
-        assert link.recv(timeout=WAIT) == [Query()]
+        assert link.recv(timeout=WAIT) == [sample(7)]
     finally:
         thread.join(WAIT)
 

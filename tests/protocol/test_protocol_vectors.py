@@ -28,6 +28,9 @@ DATA = json.loads(VECTORS_FILE.read_text(encoding="utf-8"))
 GOOD = [v for v in DATA["vectors"] if "expect_error" not in v]
 BAD = [v for v in DATA["vectors"] if "expect_error" in v]
 CLASSES = {cls.TYPE.name: cls for cls in MESSAGE_CLASSES}
+AUTH = DATA["auth"]
+AUTH_GOOD = [v for v in AUTH["vectors"] if "expect_error" not in v]
+AUTH_BAD = [v for v in AUTH["vectors"] if "expect_error" in v]
 
 
 def from_json(value):
@@ -41,6 +44,9 @@ def message_from(spec: dict):
     kwargs = {}
     for key, value in spec.items():
         if key == "type":
+            continue
+        if key == "nonce":
+            kwargs[key] = bytes.fromhex(value)
             continue
         kwargs[key] = tuple(from_json(v) for v in value) if isinstance(value, list) else from_json(value)
     return cls(**kwargs)
@@ -93,7 +99,9 @@ def test_coverage_of_the_vectors():
     assert any("NaN" in v["message"].get("channels", []) for v in GOOD)
     assert any(v["message"].get("seq") == 0xFFFFFFFF for v in GOOD if v["message"]["type"] == "SAMPLE")
     reasons = {v["expect_error"] for v in BAD}
-    assert reasons == set(REASONS) - {"sequence"}  # sequence needs history: see sequence_cases
+    # sequence needs history (see sequence_cases); auth needs a key and a session (see the auth section)
+    assert reasons == set(REASONS) - {"sequence", "auth"}
+    assert {v["expect_error"] for v in AUTH_BAD} == {"auth"}
 
 
 @pytest.mark.parametrize("vector", GOOD, ids=[v["name"] for v in GOOD])
@@ -136,8 +144,9 @@ def test_sequence_case(case):
     assert is_newer(case["seq"], case["last"]) is case["newer"]
     tracker = SequenceTracker()
     tracker.accept(case["last"])
-    assert tracker.accept(case["seq"]) is case["newer"]
+    assert tracker.accept(case["seq"]) is case["accept"]
     assert tracker.lost == case["lost"]
+    assert not case["accept"] or case["newer"]     # an accepted number is always a newer one
 
 
 def test_crc_and_cobs_cases():
@@ -165,3 +174,67 @@ def test_worked_examples_in_the_document_match_the_vectors():
     for key, data in blocks.items():
         name, kind = key.split(":")
         assert data.hex() == by_name[name][f"{kind}_hex"], f"worked example {key} in docs/protocol.md is stale"
+
+
+# --- authenticated frames (docs/protocol.md §14) ---------------------------------------------
+
+
+def _device_end(counter_before: int = 0):
+    from rigloop.protocol.auth import DeviceAuth
+
+    end = DeviceAuth(bytes.fromhex(AUTH["key_hex"]), nonce_source=lambda: bytes.fromhex(AUTH["device_nonce_hex"]))
+    end.start_session(bytes.fromhex(AUTH["host_nonce_hex"]))
+    end.rx_counter = counter_before
+    return end
+
+
+def _host_end():
+    from rigloop.protocol.auth import HostAuth
+
+    end = HostAuth(bytes.fromhex(AUTH["key_hex"]))
+    end.host_nonce = bytes.fromhex(AUTH["host_nonce_hex"])
+    return end
+
+
+@pytest.mark.parametrize("vector", AUTH_GOOD, ids=[v["name"] for v in AUTH_GOOD])
+def test_auth_vector_opens_and_seals(vector):
+    msg = message_from(vector["message"])
+    frame = bytes.fromhex(vector["frame_hex"])
+    assert frame[1] == msg.TYPE | 0x80
+    if vector["direction"] == "host_to_device":
+        end = _device_end(vector["counter"] - 1)
+        assert same(decode_frame(frame, end), msg)
+        assert end.rx_counter == vector["counter"]
+        with pytest.raises(ProtocolError) as info:   # the same frame again: a replay
+            decode_frame(frame, end)
+        assert info.value.reason == "auth"
+        sender = _host_end()
+        sender.open(bytes.fromhex(AUTH_GOOD[0]["frame_hex"])[:-2])   # the session's HELLO
+        sender.tx_counter = vector["counter"] - 1
+        assert encode_frame(msg, auth=sender) == frame
+    else:
+        end = _host_end()
+        if msg.TYPE is not MsgType.HELLO:
+            end.open(bytes.fromhex(AUTH_GOOD[0]["frame_hex"])[:-2])
+        assert same(decode_frame(frame, end), msg)
+        sender = _device_end()
+        sender.tx_counter = vector["counter"] - 1
+        assert encode_frame(msg, auth=sender) == frame
+    assert cobs_encode(frame) + b"\x00" == bytes.fromhex(vector["serial_hex"])
+
+
+@pytest.mark.parametrize("vector", AUTH_BAD, ids=[v["name"] for v in AUTH_BAD])
+def test_auth_bad_vector_is_rejected(vector):
+    frame = bytes.fromhex(vector["frame_hex"])
+    with pytest.raises(ProtocolError) as info:
+        decode_frame(frame, _device_end(2))
+    assert info.value.reason == "auth"
+    decoder = StreamDecoder(auth=_device_end(2))
+    assert decoder.feed(b"\x00" + bytes.fromhex(vector["serial_hex"])) == []
+    assert decoder.counters.auth == 1 and decoder.counters.total_rejected == 1
+
+
+def test_an_unkeyed_receiver_rejects_tagged_frames_under_auth():
+    with pytest.raises(ProtocolError) as info:
+        decode_frame(bytes.fromhex(AUTH_GOOD[1]["frame_hex"]))
+    assert info.value.reason == "auth"

@@ -4,6 +4,11 @@
  *
  *   rl_host_device --pty  [options]      serial over a pseudo-terminal; prints "PTY /dev/pts/N"
  *   rl_host_device --udp HOST:PORT [...] one frame per datagram; prints "UDP HOST:PORT"
+ *   --key-file PATH                      authenticated frames (docs/protocol.md section 14)
+ *
+ * Over UDP the port binds to the host of the first valid CONFIGURE (section 6.7): until the core
+ * releases it, datagrams from any other address are counted and dropped, and answers go only to
+ * that host.
  *
  * The line on stdout is flushed at once, so a test can start the process and read where to
  * connect. Diagnostics go to stderr. SIGTERM or SIGINT ends the process cleanly (exit 0), as does
@@ -27,6 +32,7 @@
 #include <unistd.h>
 
 #include "rl_device.h"
+#include "rl_host_key.h"
 #include "rl_host_plant.h"
 
 #define HOST_FW_VERSION 0x0100u /* 1.0 */
@@ -42,6 +48,7 @@ typedef struct options {
     double gain, tau_s, y0;
     double quit_after_s;
     const char *name;
+    const char *key_file;
 } options;
 
 typedef struct host_port {
@@ -55,6 +62,9 @@ typedef struct host_port {
     int have_peer;
     const struct sockaddr_storage *replying_to; /* sender of the datagram being handled */
     socklen_t replying_len;
+    struct sockaddr_storage bound; /* the host of the binding CONFIGURE (section 6.7) */
+    socklen_t bound_len;
+    uint32_t binds_seen;
     int resync_next; /* a frame was cut short: start the next one with a delimiter */
     unsigned long bytes_dropped;
     unsigned long send_errors;
@@ -161,7 +171,9 @@ static void usage(FILE *to)
             "  --tau S               plant time constant in seconds (default 0.2)\n"
             "  --y0 X                plant initial output (default 0)\n"
             "  --name NAME           device name in HELLO, up to 16 characters (default host-stub)\n"
-            "  --quit-after S        exit after S seconds (default 0: run until SIGTERM/SIGINT)\n");
+            "  --quit-after S        exit after S seconds (default 0: run until SIGTERM/SIGINT)\n"
+            "  --key-file PATH       pre-shared key in hex (16..64 bytes), a file only its owner\n"
+            "                        can read: every frame must carry a valid tag\n");
 }
 
 static int bad_option(const char *flag, const char *value, const char *fix)
@@ -223,6 +235,7 @@ static int parse_options(int argc, char **argv, options *o)
     o->y0 = 0.0;
     o->quit_after_s = 0.0;
     o->name = "host-stub";
+    o->key_file = NULL;
 
     for (i = 1; i < argc; ++i) {
         const char *a = argv[i];
@@ -300,6 +313,11 @@ static int parse_options(int argc, char **argv, options *o)
             if (o->quit_after_s < 0.0) {
                 return bad_option(a, v, "give 0 (no limit) or a positive number of seconds");
             }
+        } else if (strcmp(a, "--key-file") == 0) {
+            if (v == NULL || v[0] == '\0') {
+                return bad_option(a, v, "give the path of the rig's key file");
+            }
+            o->key_file = v;
         } else if (strcmp(a, "--name") == 0) {
             if (v == NULL || strlen(v) > RL_NAME_LEN) {
                 return bad_option(a, v, "give a name of 1 to 16 characters");
@@ -335,6 +353,12 @@ static int parse_options(int argc, char **argv, options *o)
         return 0;
     }
     return 1;
+}
+
+static int same_address(const struct sockaddr_storage *a, socklen_t a_len,
+                        const struct sockaddr_storage *b, socklen_t b_len)
+{
+    return a_len == b_len && memcmp(a, b, (size_t)a_len) == 0;
 }
 
 /* ---- transports --------------------------------------------------------------------------- */
@@ -450,12 +474,21 @@ static void receive(host_port *h, rl_device *d)
             if (n < 0) {
                 return; /* EAGAIN: drained; other errors (ICMP reports) are not ours to fix */
             }
+            if (rl_device_bound(d) && !same_address(&from, from_len, &h->bound, h->bound_len)) {
+                rl_device_note_foreign(d); /* never acted on, never answered */
+                continue;
+            }
             h->replying_to = &from;
             h->replying_len = from_len;
             if (rl_device_rx_frame(d, buf, (size_t)n) == RL_REJECT_NONE) {
                 memcpy(&h->peer, &from, from_len); /* answer whoever last sent a valid frame */
                 h->peer_len = from_len;
                 h->have_peer = 1;
+            }
+            if (rl_device_get_counters(d)->binds != h->binds_seen) {
+                h->binds_seen = rl_device_get_counters(d)->binds; /* a CONFIGURE bound us */
+                memcpy(&h->bound, &from, from_len);
+                h->bound_len = from_len;
             }
             h->replying_to = NULL;
         } else {
@@ -479,6 +512,8 @@ static void print_summary(const rl_device *d, const host_port *h)
             (unsigned long)c->commands_accepted, (unsigned long)c->commands_ignored,
             (unsigned long)c->watchdog_trips, (unsigned long)c->stops,
             (unsigned long)c->ticks_missed, h->bytes_dropped);
+    fprintf(stderr, ", foreign %lu, binds %lu, releases %lu", (unsigned long)c->foreign,
+            (unsigned long)c->binds, (unsigned long)c->releases);
     for (r = 1; r < (int)RL_REJECT_COUNT; ++r) {
         fprintf(stderr, ", rejected %s %lu", rl_reject_name((rl_reject)r),
                 (unsigned long)c->rejected[r]);
@@ -496,9 +531,22 @@ int main(int argc, char **argv)
     struct sigaction sa;
     sigset_t blocked, during_wait;
     uint64_t quit_at = 0;
+    uint8_t key[RL_AUTH_KEY_MAX];
+    size_t key_len = 0;
+    FILE *urandom = NULL;
 
     if (!parse_options(argc, argv, &opt)) {
         return 2;
+    }
+    if (opt.key_file != NULL) {
+        if (!rl_host_load_key(opt.key_file, key, &key_len)) {
+            return 2;
+        }
+        urandom = fopen("/dev/urandom", "rb");
+        if (urandom == NULL) {
+            perror("rl_host_device: cannot open /dev/urandom for session nonces");
+            return 1;
+        }
     }
     clock_gettime(CLOCK_MONOTONIC, &hp.start);
     hp.fd = -1;
@@ -557,13 +605,20 @@ int main(int argc, char **argv)
                 opt.min_period_us);
         return 2;
     }
+    if (urandom != NULL) {
+        if (rl_device_set_key(&dev, key, key_len, rl_host_urandom_nonce, urandom) != 0) {
+            fprintf(stderr, "rl_host_device: key refused\n");
+            return 2;
+        }
+        memset(key, 0, sizeof key);
+    }
     if (opt.quit_after_s > 0.0) {
         quit_at = host_micros(&hp) + (uint64_t)(opt.quit_after_s * 1e6);
     }
     fprintf(stderr, "rl_host_device: %s, %u channels, period %lu us, watchdog %lu us, plant "
-                    "first-order gain %g tau %g s\n",
+                    "first-order gain %g tau %g s, %s\n",
             hp.is_udp ? "udp" : "pty", opt.channels, opt.period_us, opt.watchdog_us, opt.gain,
-            opt.tau_s);
+            opt.tau_s, urandom != NULL ? "authenticated frames" : "no key");
 
     while (!stop_requested) {
         fd_set readable;
@@ -600,5 +655,8 @@ int main(int argc, char **argv)
         close(hp.pty_slave);
     }
     close(hp.fd);
+    if (urandom != NULL) {
+        fclose(urandom);
+    }
     return 0;
 }

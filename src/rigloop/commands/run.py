@@ -109,7 +109,9 @@ def print_summary(result, stream) -> None:
       f"(all running rows, lead-in included)\n")
     rej = s.get("rejected_frames") or {}
     w(f"link: lost {s.get('lost_samples', 0)}, rejected {rej.get('total_rejected', 0)}, "
-      f"late ticks {s.get('late_ticks', 0)}\n")
+      f"late ticks {s.get('late_ticks', 0)}"
+      + (f", foreign frames {s['foreign_frames']}" if s.get("foreign_frames") else "")
+      + (", authenticated" if s.get("authenticated") else "") + "\n")
     lat = s.get("latency_ms") or {}
     comp = s.get("compute_us") or {}
     w(f"loop timing: latency p50 {_g(lat.get('p50'))} ms, p99 {_g(lat.get('p99'))} ms; "

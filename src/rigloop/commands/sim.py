@@ -125,6 +125,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--lockstep-wait-ms", metavar="MS", type=_number(0, "milliseconds", strict=True),
                         default=None, help="lockstep clock: wait this long for the host's answer before "
                                            "ticking anyway (default: one period)")
+    parser.add_argument("--key-file", metavar="PATH", type=Path, default=None,
+                        help="the rig's pre-shared key (hex, a file only its owner can read): every "
+                             "frame must then carry a valid tag (docs/protocol.md §14)")
     parser.add_argument("--exit-with-parent", action="store_true",
                         help="exit when the process that started this one ends (always on with "
                              "--clock lockstep)")
@@ -225,9 +228,17 @@ def build_from_args(args: argparse.Namespace):
     scales = _scaling(args.scale, "--scale", names)
     offsets = _scaling(args.offset, "--offset", names)
     channels = [SentChannel(n, scales.get(n, 1.0), offsets.get(n, 0.0)) for n in names]
+    key = None
+    if args.key_file is not None:
+        from rigloop.link.key_file import KeyFileError, load_key
+
+        try:
+            key = load_key(args.key_file)
+        except KeyFileError as exc:
+            raise _UsageError(f"--key-file {exc}") from None
     device = build_device(args.plant, params=params, channels=channels, rate_hz=args.rate,
                           noise=args.noise, seed=args.seed, faults=args.fault,
-                          rig=args.rig, sensors=args.sensors)
+                          rig=args.rig, sensors=args.sensors, key=key)
     options = ServerOptions(clock=args.clock, quit_after_s=args.quit_after,
                             exit_with_parent=args.exit_with_parent, rx_log=args.rx_log,
                             trace=args.trace,
@@ -269,7 +280,8 @@ def run(args: argparse.Namespace) -> int:
     # One machine-readable line on exit: what ended the run and every counter.
     summary = {"stop": server.stop_reason, "ticks": device.ticks, "overruns": device.overruns,
                "rejected": device.rejects.as_dict(), "ignored": device.ignored,
-               "tx": server.tx_results, "faults": device.faults.counters}
+               "tx": server.tx_results, "faults": device.faults.counters,
+               "foreign": device.foreign, "binds": device.bind_count, "releases": device.releases}
     print("rigloop-sim summary " + json.dumps(summary, separators=(",", ":")), file=sys.stderr,
           flush=True)
     return code

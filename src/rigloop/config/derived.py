@@ -344,10 +344,36 @@ def derived_quantities(cfg: Config) -> list[Derived]:
     _estimator(cfg, out)
     _gain_checks(cfg, out, _closed_loop(cfg, out))
     _link(cfg, out)
+    _link_security(cfg, out)
     _safety(cfg, out)
     _recording(cfg, out)
     _loosened(cfg, out)
     return out
+
+
+def _link_security(cfg: Config, out: list[Derived]) -> None:
+    """docs/protocol.md §14: a device beyond this machine without a key can be driven by anyone
+    who can send it a datagram (or forge its samples); say so whenever that is the case."""
+    from rigloop.config.schema import is_loopback
+
+    dev = cfg.device
+    if dev.link == "sim":
+        local = True
+    elif dev.link == "udp":
+        local = is_loopback(dev.udp.host) is True
+    else:
+        local = True           # a serial line is point to point: reaching it is physical access
+    keyed = dev.key_file is not None
+    if keyed:
+        out.append(Derived("link authentication", "HMAC-SHA-256/64", "", f"key from {dev.key_file}"))
+    elif local:
+        out.append(Derived("link authentication", "off", "",
+                           "serial line, point to point" if dev.link == "serial" else "device on this computer (loopback)"))
+    else:
+        out.append(Derived("link authentication", "off", "",
+                           f"the device ({dev.udp.host}) is not on loopback and no key is set: anyone who can "
+                           "reach the link can drive or spoof the rig; set device.auth.key_file "
+                           "(docs/protocol.md §14)", warning=True))
 
 
 def warnings_of(cfg: Config) -> list[Derived]:

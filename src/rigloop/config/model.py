@@ -57,6 +57,8 @@ class DeviceConfig:
     sim: SimConfig
     udp: UdpConfig
     serial: SerialConfig
+    #: the rig's key file (docs/protocol.md §14), resolved against the config's folder; None = no key
+    key_file: Path | None = None
 
     @property
     def period_s(self) -> float:
@@ -213,6 +215,7 @@ def build_config(root: dict, *, source_path: Path | None, base_dir: Path, url: s
                       sensors={k: dict(v) for k, v in (sim.get("sensors") or {}).items()}),
         udp=UdpConfig(**dev["udp"]),
         serial=SerialConfig(**dev["serial"]),
+        key_file=Path(dev["auth"]["key_file"]) if dev["auth"]["key_file"] else None,
     )
     ctl = root["control"]
     control = ControlConfig(

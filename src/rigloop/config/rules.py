@@ -441,6 +441,24 @@ def device_files_exist(ctx: RuleContext) -> Iterator[Problem]:
     ctx.root["device"]["sim"]["params_file"] = str(path.resolve())
 
 
+@rule
+def key_file_is_usable(ctx: RuleContext) -> Iterator[Problem]:
+    """The key must load now (exists, private, hex, 16..64 bytes): a run refused later would
+    have connected first."""
+    name = get(ctx.root, "device.auth.key_file")
+    if not _valid(name) or name is None:
+        return
+    path = ctx.resolve(name)
+    from rigloop.link.key_file import KeyFileError, load_key
+
+    try:
+        load_key(path)
+    except KeyFileError as error:
+        yield Problem("device.auth.key_file", name, str(error))
+        return
+    ctx.root["device"]["auth"]["key_file"] = str(path.resolve())
+
+
 def _plant_facts(kind: str, params: dict) -> tuple[tuple[str, ...], tuple[float, float], str | None]:
     """(channel names, actuator range, problem with params) of a simulated plant."""
     try:

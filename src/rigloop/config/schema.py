@@ -333,8 +333,35 @@ def _default_watchdog_ms(root: dict) -> float:
     return min(WATCHDOG_MS_MAX, max(100.0, 3000.0 / root["device"]["rate_hz"]))
 
 
+def interface_towards(host: str) -> str | None:
+    """The local address this computer would send from to reach ``host`` (an IP address), or None.
+
+    A connected UDP socket sends nothing: connecting only asks the routing table. A host name is
+    not looked up (no DNS while a config is read), so it gives None too.
+    """
+    import ipaddress
+    import socket
+
+    try:
+        addr = ipaddress.ip_address(host.split("%", 1)[0])
+    except ValueError:
+        return None
+    family = socket.AF_INET6 if addr.version == 6 else socket.AF_INET
+    try:
+        with socket.socket(family, socket.SOCK_DGRAM) as sock:
+            sock.connect((host, 9))
+            local = sock.getsockname()[0]
+    except OSError:
+        return None
+    return None if ipaddress.ip_address(local.split("%", 1)[0]).is_unspecified else local
+
+
 def _default_local_host(root: dict) -> str:
-    return "127.0.0.1" if is_loopback(root["device"]["udp"]["host"]) else "0.0.0.0"
+    """Listen where the device can answer, and nowhere else (protocol 1.1 threat model, §15)."""
+    host = root["device"]["udp"]["host"]
+    if is_loopback(host):
+        return "127.0.0.1"
+    return interface_towards(host) or "0.0.0.0"
 
 
 def _default_order(root: dict) -> int:
@@ -443,9 +470,16 @@ SCHEMA: tuple[Key, ...] = (
     Key("device.udp.host", Text(), "127.0.0.1", "device IP address or host name"),
     Key("device.udp.port", Integer(ge=1, le=65535), 47800, "device UDP port"),
     Key("device.udp.local_host", Text(), Computed(_default_local_host,
-                                                   "127.0.0.1 for a local device, else 0.0.0.0"),
+                                                   "127.0.0.1 for a local device, else this "
+                                                   "computer's address on the route to the device "
+                                                   "(0.0.0.0 if none is known, e.g. a host name)"),
         "local address to bind; must be able to reach the device"),
     Key("device.udp.local_port", Integer(ge=0, le=65535), 0, "local UDP port, 0 = any free port"),
+    Key("device.auth", Section(), {}, "authenticated frames (docs/protocol.md §14)"),
+    Key("device.auth.key_file", Text(), None,
+        "file holding the rig's pre-shared key in hex (16..64 bytes), readable by its owner only "
+        "(chmod 600); every frame then carries a tag; null = unauthenticated (loopback only)",
+        nullable=True),
     Key("device.serial", Section(), {}, "serial settings (link: serial)"),
     Key("device.serial.port", Text(), "/dev/ttyACM0",
         "serial port name (/dev/ttyACM0, COM3) or pyserial URL"),

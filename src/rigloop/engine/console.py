@@ -25,8 +25,8 @@ class ConsoleStatus:
         self._last = rec
 
     def on_event(self, ev: EventRecord) -> None:
-        if ev.kind in ("trip", "estop", "stop", "armed", "reset", "link_fault", "device_fault", "param", "warning",
-                       "scheduling"):
+        if ev.kind in ("trip", "estop", "stop", "armed", "reset", "link_fault", "link_rejected", "device_fault",
+                       "param", "warning", "scheduling"):
             self._clear()
             self.stream.write(f"[{ev.kind}] {ev.detail}\n")
             self.stream.flush()

@@ -94,6 +94,8 @@ class Engine(SessionLifecycle, FrontEndRequests):
         self._armed_seen = False
         self._arm_wait = 0
         self._status_bits = 0                 # the device's status in its newest sample
+        self._arm_after_command: str | None = None   # autostart: ARM right after the next COMMAND
+        self._rejections = None               # link_events.RejectionReporter once connected
         self._wall_minus_perf = time.time() - time.perf_counter()
         self.realtime = True
         self.scheduling: dict | None = None
@@ -289,6 +291,10 @@ class Engine(SessionLifecycle, FrontEndRequests):
                 except LinkError as exc:  # a link that cannot take a COMMAND is lost: trip, no traceback
                     self._trip(Trip("link-lost", f"could not send a COMMAND: {exc}", t=t))
                 t_sent = time.perf_counter()
+                if self._arm_after_command is not None:
+                    source, self._arm_after_command = self._arm_after_command, None
+                    if self.state is State.IDLE:     # a first sample may already have tripped
+                        self._arm(source)
                 self.u_cmd = u_cmd
                 self.last_cmd_t = t
                 t_from = rx_first if (rx_first is not None and n == 1) else t_arrival
@@ -498,6 +504,7 @@ class Engine(SessionLifecycle, FrontEndRequests):
                     self._done = True
             elif trip is not None and self.exit_after_trip and self._tail_until is not None:
                 self._done = True  # no more rows will come: finish now
+        self._report_rejections(now)
         rejected = self.link.counters.rejected.total_rejected
         trip = self.supervisor.check_link(self.t_last, rejected, now)
         if trip is not None and self.state is not State.TRIPPED:
@@ -516,6 +523,13 @@ class Engine(SessionLifecycle, FrontEndRequests):
                 self.status_sink(self.status())
             except Exception:  # noqa: BLE001 - a display sink never stops the rig
                 log.exception("status sink failed")
+
+    def _report_rejections(self, now: float | None = None, final: bool = False) -> None:
+        """Foreign, unauthenticated and implausible frames as rate-limited events (link_events)."""
+        if self._rejections is None:
+            return
+        for kind, text, total in self._rejections.poll(time.perf_counter() if now is None else now, final):
+            self._emit(EventRecord("link_rejected", f"{kind}: {text}", t=self.t_last, value=float(total)))
 
     def _publish(self, rec: TickRecord) -> None:
         for sub in self.subscribers:

@@ -4,6 +4,11 @@ Tried in order: POSIX SCHED_FIFO (Linux; needs CAP_SYS_NICE or root), then a low
 (POSIX), then HIGH_PRIORITY_CLASS on Windows. macOS has no SCHED_FIFO for user processes; there
 only the nice step applies. Failure is normal and harmless: the loop still runs, just with more
 jitter, and the log says so.
+
+What is raised is given back: :func:`snapshot` before and :func:`restore` after a session, so an
+engine that runs inside another process (the tests, a script) leaves that process as it found it.
+The real-time class is asked with SCHED_RESET_ON_FORK where the OS has it, so a child started
+later (a simulated device, a compiler) never inherits a priority that could starve the machine.
 """
 
 from __future__ import annotations
@@ -27,11 +32,43 @@ def request_priority(realtime: bool = True) -> tuple[str, str]:
     return granted.replace(" priority", ""), text
 
 
+def snapshot() -> dict:
+    """This thread's scheduling class and the process's nice value, for :func:`restore`."""
+    snap: dict = {}
+    if hasattr(os, "sched_getscheduler"):
+        try:
+            snap["policy"] = os.sched_getscheduler(0)
+            snap["param"] = os.sched_getparam(0)
+        except OSError:
+            pass
+    if hasattr(os, "getpriority"):
+        try:
+            snap["nice"] = os.getpriority(os.PRIO_PROCESS, 0)
+        except OSError:
+            pass
+    return snap
+
+
+def restore(snap: dict) -> None:
+    """Give back what :func:`request_priority` took; never raises (lowering needs no privilege)."""
+    if "policy" in snap:
+        try:
+            os.sched_setscheduler(0, snap["policy"], snap["param"])
+        except OSError:
+            pass
+    if "nice" in snap:
+        try:
+            os.setpriority(os.PRIO_PROCESS, 0, snap["nice"])
+        except OSError:
+            pass
+
+
 def _raise(realtime: bool) -> str:
     if realtime and hasattr(os, "sched_setscheduler") and hasattr(os, "SCHED_FIFO"):
         try:
             prio = min(20, os.sched_get_priority_max(os.SCHED_FIFO))
-            os.sched_setscheduler(0, os.SCHED_FIFO, os.sched_param(prio))
+            policy = os.SCHED_FIFO | getattr(os, "SCHED_RESET_ON_FORK", 0)
+            os.sched_setscheduler(0, policy, os.sched_param(prio))
             return f"scheduling: SCHED_FIFO priority {prio} obtained"
         except (PermissionError, OSError) as exc:
             fifo_msg = f"SCHED_FIFO refused ({exc.strerror or exc})"
@@ -39,6 +76,11 @@ def _raise(realtime: bool) -> str:
         fifo_msg = "SCHED_FIFO not attempted" if not realtime else "SCHED_FIFO not available on this OS"
     if hasattr(os, "nice"):
         try:
+            if hasattr(os, "SCHED_RESET_ON_FORK") and hasattr(os, "SCHED_OTHER"):
+                try:  # children get nice 0 back, not our -10
+                    os.sched_setscheduler(0, os.SCHED_OTHER | os.SCHED_RESET_ON_FORK, os.sched_param(0))
+                except OSError:
+                    pass
             os.nice(-10)
             return f"scheduling: {fifo_msg}; nice -10 obtained"
         except (PermissionError, OSError) as exc:

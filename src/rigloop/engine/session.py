@@ -112,7 +112,10 @@ class SessionLifecycle:
         asked = bool(self.cfg.engine.realtime) and self.realtime
         if not self.cfg.engine.realtime:
             obtained, text = "normal", "scheduling: not changed, normal priority (engine.realtime: false)"
+        elif not self.realtime:
+            obtained, text = "normal", "scheduling: not changed, normal priority"
         else:
+            self._priority_before = priority.snapshot()
             obtained, text = priority.request_priority(realtime=asked)
         if self.cfg.engine.realtime and not self.realtime:
             text += " (lockstep simulation: device time is not wall time)"
@@ -128,19 +131,25 @@ class SessionLifecycle:
         cfg = self.cfg
         if self.link is not None:
             return getattr(self.link, "url", "custom link")
+        key = None
+        if getattr(cfg.device, "key_file", None) is not None:
+            from rigloop.link.key_file import load_key
+
+            key = load_key(cfg.device.key_file)     # checked at validation; re-read: it may have changed
+            log.info("link authentication on: key from %s", cfg.device.key_file)
         if cfg.device.link == "sim":
             from rigloop.sim.launcher import start_sim
 
             self.sim = start_sim(cfg, **self.sim_extra)
             from rigloop.link.udp import UdpLink
 
-            self.link = UdpLink(self.sim.host, self.sim.port)
+            self.link = UdpLink(self.sim.host, self.sim.port, key=key)
             log.info("simulated device started: %s (plant %s, clock %s)", self.sim.url,
                      cfg.device.sim.plant, cfg.device.sim.clock)
             return f"sim://{cfg.device.sim.plant}"
         from rigloop.link import open_link
 
-        self.link = open_link(cfg.device)
+        self.link = open_link(cfg.device, key=key)
         return self.link.url
 
     def _handshake(self) -> None:
@@ -249,8 +258,13 @@ class SessionLifecycle:
         self._last_status = 0.0
         self._transition("connected")
         self._emit(EventRecord("connected", f"{url} device {self.hello.name!r}"))
+        from rigloop.engine.link_events import RejectionReporter
+
+        self._rejections = RejectionReporter(self.link.counters)
         if self.autostart:
-            self._arm("autostart")
+            # ARM goes out right after the COMMAND answering the first SAMPLE (protocol §4.8, §11),
+            # so the device ignores that COMMAND and takes the first one sent after ARM as its first.
+            self._arm_after_command = "autostart"
 
     def _exit_code(self) -> int:
         if self.outcome == "completed":
@@ -275,6 +289,7 @@ class SessionLifecycle:
             "samples": self.n_samples,
             "lost_samples": c.lost_samples if c else 0,
             "rejected": c.rejected.as_dict() if c else {},
+            "foreign_frames": c.foreign if c else 0,
             "latency_ms": self.lat_hist.summary(1e3),
             "lateness_ms": self.lateness_hist.summary(1e3),
             "compute_us": self.comp_hist.summary(1e6, 1),
@@ -299,6 +314,8 @@ class SessionLifecycle:
             "max_abs_error": self.max_abs_e if self.n_err else None,
             "lost_samples": c.lost_samples if c else 0,
             "rejected_frames": c.rejected.as_dict() if c else {},
+            "foreign_frames": c.foreign if c else 0,
+            "authenticated": bool(getattr(getattr(self.link, "auth", None), "keyed", False)),
             "late_ticks": self.late_ticks,
             "latency_ms": self.lat_hist.summary(1e3),
             "lateness_ms": self.lateness_hist.summary(1e3),
@@ -306,6 +323,7 @@ class SessionLifecycle:
         }
 
     def _finish_files(self, summary: dict) -> None:
+        self._report_rejections(final=True)
         if self.outcome == "running":          # not completed: an operator e-stop is a stop, not a trip
             self.outcome = "tripped" if self.trip is not None and self.trip.cause != "e-stop" else "stopped"
         if self.trip is not None and not self.stop_reason:
@@ -333,6 +351,11 @@ class SessionLifecycle:
             return self.plan_result
 
     def _teardown(self) -> None:
+        if getattr(self, "_priority_before", None) is not None:
+            from rigloop.engine import priority
+
+            priority.restore(self._priority_before)
+            self._priority_before = None
         if self.link is not None:
             try:
                 self.link.close()

@@ -11,7 +11,7 @@ from dataclasses import dataclass, field
 from typing import Protocol, runtime_checkable
 
 from rigloop.protocol.framing import RejectCounters
-from rigloop.protocol.messages import Hello, Message, Sample
+from rigloop.protocol.messages import DEVICE_TO_HOST, Hello, Message, Sample
 from rigloop.protocol.sequence import SequenceTracker
 
 
@@ -72,7 +72,8 @@ class Link(Protocol):
 
 
 class SampleFilter:
-    """Host-side sequence check shared by the links: drops old SAMPLEs, counts gaps.
+    """Host-side checks shared by the links: drops old or implausible SAMPLEs (counting gaps) and
+    host-to-device types (``type``).
 
     A HELLO restarts the check, because a device that rebooted starts its SAMPLE sequence anew
     (docs/protocol.md §5).
@@ -85,10 +86,14 @@ class SampleFilter:
         self._tracker = SequenceTracker(counters.rejected)
 
     def keep(self, msg: Message) -> bool:
-        if type(msg) is Sample:
+        kind = type(msg)
+        if kind is Sample:
             if not self._tracker.accept(msg.seq):
                 return False
             self._counters.lost_samples = self._tracker.lost
-        elif type(msg) is Hello:
+        elif kind is Hello:
             self._tracker.reset()
+        elif kind.TYPE not in DEVICE_TO_HOST:
+            self._counters.rejected.type += 1   # protocol 1.1 §3: a host-to-device type sent to the host
+            return False
         return True

@@ -29,6 +29,7 @@ import time
 import serial
 
 from rigloop.link.base import LinkCounters, LinkError, SampleFilter
+from rigloop.protocol.auth import HostAuth
 from rigloop.protocol.framing import StreamDecoder, encode_serial
 from rigloop.protocol.messages import Message, ProtocolError
 
@@ -40,7 +41,7 @@ _READ_MAX = 16 * _READ_CHUNK  # bytes read per recv() call at most
 class SerialLink:
     """Host end of a serial device link."""
 
-    def __init__(self, port: str, baud: int):
+    def __init__(self, port: str, baud: int, *, key: bytes | None = None):
         if not isinstance(port, str) or not port:
             raise LinkError(f"serial port {port!r}: give a device path such as /dev/ttyACM0 or COM3")
         if not isinstance(baud, int) or isinstance(baud, bool) or baud <= 0:
@@ -59,7 +60,9 @@ class SerialLink:
         self._fd = _fileno_of(ser)
         self.url = f"serial://{port}?baud={baud}"
         self.counters = LinkCounters()
-        self._decoder = StreamDecoder(self.counters.rejected)
+        #: the authentication end (docs/protocol.md §14); without a key it refuses tagged frames
+        self.auth = HostAuth(key)
+        self._decoder = StreamDecoder(self.counters.rejected, auth=self.auth)
         self._filter = SampleFilter(self.counters)
         self._write_lock = threading.Lock()
         self._closed = False
@@ -77,7 +80,7 @@ class SerialLink:
         if self._closed:
             raise LinkError(f"{self.url}: link is closed")
         try:
-            data = encode_serial(msg)
+            data = encode_serial(msg, auth=self.auth)
         except ProtocolError as exc:
             raise LinkError(f"{self.url}: refusing to send {type(msg).__name__}: {exc}") from None
         self._write(data)

@@ -18,6 +18,7 @@ import sys
 import time
 
 from rigloop.link.base import LinkCounters, LinkError, SampleFilter
+from rigloop.protocol.auth import HostAuth
 from rigloop.protocol.framing import DatagramDecoder, encode_frame
 from rigloop.protocol.messages import Message, ProtocolError
 
@@ -75,7 +76,8 @@ def _kernel_time(ancdata) -> float:
 class UdpLink:
     """Host end of a UDP device link."""
 
-    def __init__(self, device_host: str, device_port: int, local_host: str = "127.0.0.1", local_port: int = 0):
+    def __init__(self, device_host: str, device_port: int, local_host: str = "127.0.0.1", local_port: int = 0,
+                 *, key: bytes | None = None):
         for field, value in (("device_port", device_port), ("local_port", local_port)):
             if not isinstance(value, int) or isinstance(value, bool) or not 0 <= value <= 65535:
                 raise LinkError(f"udp {field}={value!r}: give an integer port in 0..65535")
@@ -107,7 +109,9 @@ class UdpLink:
         self._sock = sock
         self._dev_sockaddr = device_addr
         self.counters = LinkCounters()
-        self._decoder = DatagramDecoder(self.counters.rejected)
+        #: the authentication end (docs/protocol.md §14); without a key it refuses tagged frames
+        self.auth = HostAuth(key)
+        self._decoder = DatagramDecoder(self.counters.rejected, auth=self.auth)
         self._filter = SampleFilter(self.counters)
         host = f"[{device_addr[0]}]" if family == socket.AF_INET6 else device_addr[0]
         self.url = f"udp://{host}:{device_addr[1]}"
@@ -130,7 +134,7 @@ class UdpLink:
         if self._closed:
             raise LinkError(f"{self.url}: link is closed")
         try:
-            frame = encode_frame(msg)
+            frame = encode_frame(msg, auth=self.auth)
         except ProtocolError as exc:
             raise LinkError(f"{self.url}: refusing to send {type(msg).__name__}: {exc}") from None
         try:

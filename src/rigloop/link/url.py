@@ -33,7 +33,7 @@ def _int_option(url: str, options: dict[str, list[str]], key: str, default: int)
         raise LinkError(f"device url {url!r}: {key}={values[-1]!r} is not an integer; write e.g. {key}={default}") from None
 
 
-def open_url(url: str) -> Link:
+def open_url(url: str, *, key: bytes | None = None) -> Link:
     """Open the link a device URL names; raise LinkError with the accepted forms on a bad URL."""
     if not isinstance(url, str) or "://" not in url:
         raise LinkError(f"device url {url!r}: expected {_FORMS}")
@@ -54,7 +54,7 @@ def open_url(url: str) -> Link:
             raise LinkError(f"device url {url!r}: give host and port, e.g. udp://127.0.0.1:47800")
         local_host = options.get("local_host", ["127.0.0.1"])[-1]
         local_port = _int_option(url, options, "local_port", 0)
-        return UdpLink(host, port, local_host=local_host, local_port=local_port)
+        return UdpLink(host, port, local_host=local_host, local_port=local_port, key=key)
     if scheme == "serial":
         path, _, query = rest.partition("?")
         options = parse_qs(query, keep_blank_values=True)
@@ -63,7 +63,7 @@ def open_url(url: str) -> Link:
             raise LinkError(f"device url {url!r}: unknown option {unknown[0]!r}; allowed: ['baud']")
         if not path:
             raise LinkError(f"device url {url!r}: give the port, e.g. serial:///dev/ttyACM0?baud=921600")
-        return SerialLink(path, _int_option(url, options, "baud", DEFAULT_BAUD))
+        return SerialLink(path, _int_option(url, options, "baud", DEFAULT_BAUD), key=key)
     if scheme == "sim":
         raise LinkError(
             f"device url {url!r}: sim:// is started by the engine (rigloop run); "
@@ -72,12 +72,13 @@ def open_url(url: str) -> Link:
     raise LinkError(f"device url {url!r}: unknown scheme {scheme!r}; expected {_FORMS}")
 
 
-def open_link(device_cfg) -> Link:
+def open_link(device_cfg, *, key: bytes | None = None) -> Link:
     """Open the link a DeviceConfig describes.
 
     The ``udp``/``serial`` sections are what counts: the config loader has already folded a
     ``device.url`` into them, and only they carry settings a URL does not (``local_host``,
-    ``local_port``). An object with nothing but a ``url`` is opened by its URL. For
+    ``local_port``). An object with nothing but a ``url`` is opened by its URL. ``key`` (the rig's
+    pre-shared key, see :mod:`rigloop.link.key_file`) makes every frame authenticated. For
     ``link: sim`` the caller starts the simulated device first and opens its udp:// address.
     """
     kind = getattr(device_cfg, "link", None)
@@ -86,14 +87,14 @@ def open_link(device_cfg) -> Link:
         return UdpLink(
             udp.host, udp.port,
             local_host=getattr(udp, "local_host", None) or "127.0.0.1",
-            local_port=getattr(udp, "local_port", None) or 0,
+            local_port=getattr(udp, "local_port", None) or 0, key=key,
         )
     if kind == "serial" and getattr(device_cfg, "serial", None) is not None:
         ser = device_cfg.serial
-        return SerialLink(ser.port, ser.baud)
+        return SerialLink(ser.port, ser.baud, key=key)
     url = getattr(device_cfg, "url", None)
     if url:
-        return open_url(url)
+        return open_url(url, key=key)
     if kind == "sim":
         raise LinkError(
             "device.link is 'sim': start the simulated device first (rigloop.sim) and open the udp:// "

@@ -12,6 +12,7 @@ from binascii import crc_hqx
 from dataclasses import dataclass, fields
 from typing import Callable
 
+from rigloop.protocol.auth import reject_tagged
 from rigloop.protocol.cobs import CobsError, cobs_encode, decode_zero_free
 from rigloop.protocol.messages import REASONS, Message, ProtocolError, decode_payload, encode_payload
 from rigloop.protocol.sequence import SequenceTracker, is_newer
@@ -38,19 +39,28 @@ _CRC = struct.Struct("<H")
 _CRC_PACK = _CRC.pack
 
 
-def encode_frame(msg: Message, *, validate: bool = True) -> bytes:
-    """Payload followed by its CRC-16/CCITT-FALSE (little-endian): one UDP datagram."""
+def encode_frame(msg: Message, *, validate: bool = True, auth=None) -> bytes:
+    """Payload followed by its CRC-16/CCITT-FALSE (little-endian): one UDP datagram.
+
+    ``auth`` (a :mod:`rigloop.protocol.auth` end) seals the payload first when it has a session.
+    """
     payload = encode_payload(msg, validate=validate)
+    if auth is not None:
+        payload = auth.seal(payload)
     return payload + _CRC_PACK(crc_hqx(payload, 0xFFFF))
 
 
-def encode_serial(msg: Message, *, validate: bool = True) -> bytes:
+def encode_serial(msg: Message, *, validate: bool = True, auth=None) -> bytes:
     """COBS-encoded frame followed by the 0x00 delimiter: what goes on a serial line."""
-    return cobs_encode(encode_frame(msg, validate=validate)) + b"\x00"
+    return cobs_encode(encode_frame(msg, validate=validate, auth=auth)) + b"\x00"
 
 
-def decode_frame(frame: bytes) -> Message:
-    """Check length and CRC, then decode; raise ProtocolError (short/crc/version/type/length/value)."""
+def decode_frame(frame: bytes, auth=None) -> Message:
+    """Check length and CRC, open the tag, then decode; raise ProtocolError naming the reason.
+
+    Without ``auth`` a tagged frame (type byte with 0x80 set) is rejected under ``auth``: this
+    receiver has no key to check it with.
+    """
     size = len(frame)
     if size < 4:
         raise ProtocolError("short", f"frame is {size} bytes; at least 4 (version, type, CRC)")
@@ -59,6 +69,10 @@ def decode_frame(frame: bytes) -> Message:
     want = crc_hqx(payload, 0xFFFF)
     if got != want:
         raise ProtocolError("crc", f"CRC 0x{got:04x} in the frame, 0x{want:04x} computed")
+    if auth is not None:
+        payload = auth.open(payload)
+    elif payload[1] & 0x80:
+        reject_tagged(payload)
     return decode_payload(payload)
 
 
@@ -76,6 +90,7 @@ class RejectCounters:
     crc: int = 0
     version: int = 0
     type: int = 0
+    auth: int = 0
     length: int = 0
     value: int = 0
     sequence: int = 0
@@ -103,15 +118,17 @@ class DatagramDecoder:
     was counted — for logs, or for a device that answers a rejected CONFIGURE with FAULT 4.
     """
 
-    __slots__ = ("counters", "on_reject")
+    __slots__ = ("counters", "on_reject", "auth")
 
-    def __init__(self, counters: RejectCounters | None = None, *, on_reject: RejectHook | None = None):
+    def __init__(self, counters: RejectCounters | None = None, *, on_reject: RejectHook | None = None,
+                 auth=None):
         self.counters = counters if counters is not None else RejectCounters()
         self.on_reject = on_reject
+        self.auth = auth
 
     def decode(self, datagram: bytes) -> Message | None:
         try:
-            msg = decode_frame(datagram)
+            msg = decode_frame(datagram, self.auth)
         except ProtocolError as exc:
             self.counters.count(exc.reason)
             if self.on_reject is not None:
@@ -133,7 +150,7 @@ class StreamDecoder:
     ``on_reject`` works as for :class:`DatagramDecoder` (it must not raise).
     """
 
-    __slots__ = ("counters", "max_frame", "on_reject", "skipped_bytes", "_buf", "_synced", "_overflow")
+    __slots__ = ("counters", "max_frame", "on_reject", "skipped_bytes", "auth", "_buf", "_synced", "_overflow")
 
     def __init__(
         self,
@@ -141,7 +158,9 @@ class StreamDecoder:
         max_frame: int = MAX_SERIAL_RUN,
         *,
         on_reject: RejectHook | None = None,
+        auth=None,
     ):
+        self.auth = auth
         self.counters = counters if counters is not None else RejectCounters()
         self.max_frame = max_frame
         self.on_reject = on_reject
@@ -199,7 +218,7 @@ class StreamDecoder:
 
     def _run(self, run: bytes, out: list[Message]) -> None:
         try:
-            msg = decode_frame(decode_zero_free(run))
+            msg = decode_frame(decode_zero_free(run), self.auth)
         except CobsError as exc:
             error = ProtocolError("cobs", str(exc))
         except ProtocolError as exc:

@@ -1,4 +1,4 @@
-"""Message types of wire protocol version 1 and their payload codec (no CRC, no framing, no I/O).
+"""Message types of wire protocol version 1 (document revision 1.1) and their payload codec (no CRC, no framing, no I/O).
 
 A payload is ``version (u8) | type (u8) | body``; all fields little-endian, floats IEEE-754
 binary32. Layouts are those of docs/protocol.md §4; each is one precompiled ``struct.Struct`` so
@@ -69,8 +69,15 @@ class StopReason(IntEnum):
     SHUTDOWN = 3
 
 
-#: Rejection reasons in the order the checks apply (docs/protocol.md §3).
-REASONS = ("cobs", "short", "crc", "version", "type", "length", "value", "sequence")
+#: Rejection reasons in the order the checks apply (docs/protocol.md §3). ``auth`` (protocol 1.1):
+#: a frame without a valid tag on a keyed link, a tagged frame on an unkeyed one, or a replay.
+REASONS = ("cobs", "short", "crc", "version", "type", "auth", "length", "value", "sequence")
+
+#: HELLO ``auth`` field (protocol 1.1): what the device demands of every frame.
+AUTH_NONE = 0
+AUTH_HMAC_SHA256_64 = 1
+#: Bytes of the session nonces carried by QUERY and HELLO (protocol 1.1).
+NONCE_SIZE = 8
 
 
 class ProtocolError(Exception):
@@ -107,7 +114,16 @@ class Hello:
     u_min: float
     u_max: float
     name: str
+    #: protocol 1.1 extension, sent in answer to a QUERY that carries a nonce (None: 1.0 form)
+    min_period_us: int | None = None
+    max_period_us: int | None = None
+    auth: int = AUTH_NONE
+    nonce: bytes | None = None
     TYPE: ClassVar[MsgType] = MsgType.HELLO
+
+    @property
+    def extended(self) -> bool:
+        return self.min_period_us is not None
 
 
 @dataclass(slots=True)
@@ -136,8 +152,9 @@ class Fault:
 
 @dataclass(slots=True)
 class Query:
-    """Asks the device for HELLO."""
+    """Asks the device for HELLO; a 1.1 host adds its session nonce (8 bytes)."""
 
+    nonce: bytes | None = None
     TYPE: ClassVar[MsgType] = MsgType.QUERY
 
 
@@ -186,6 +203,8 @@ DEVICE_TO_HOST = frozenset({MsgType.HELLO, MsgType.SAMPLE, MsgType.FAULT})
 
 _HEADER = struct.Struct("<BB")
 _HELLO = struct.Struct("<BBBBHBBIIfff16s")
+_HELLO_EXT = struct.Struct("<BBBBHBBIIfff16sIIB8s")
+_QUERY_NONCE = struct.Struct("<BB8s")
 _SAMPLE_HEAD = struct.Struct("<BBIQHfIB")
 _FAULT = struct.Struct("<BBQHHf")
 _CONFIGURE = struct.Struct("<BBIIfff")
@@ -193,17 +212,21 @@ _COMMAND = struct.Struct("<BBIIf")
 _STOP = struct.Struct("<BBB")
 _CHANNELS = tuple(struct.Struct(f"<{n}f") for n in range(MAX_CHANNELS + 1))
 
-#: Body length per type (SAMPLE: SAMPLE_BODY_FIXED + 4*n).
+#: Body length per type (SAMPLE: SAMPLE_BODY_FIXED + 4*n); the 1.1 forms of HELLO and QUERY are
+#: HELLO_EXT_BODY and NONCE_SIZE bytes.
 BODY_LENGTH = {
     MsgType.HELLO: _HELLO.size - 2,
     MsgType.FAULT: _FAULT.size - 2,
-    MsgType.QUERY: 0,
+    MsgType.QUERY: 0,          # 8 with a nonce (protocol 1.1)
     MsgType.ARM: 0,
     MsgType.CONFIGURE: _CONFIGURE.size - 2,
     MsgType.COMMAND: _COMMAND.size - 2,
     MsgType.STOP: _STOP.size - 2,
 }
 SAMPLE_BODY_FIXED = _SAMPLE_HEAD.size - 2
+HELLO_EXT_BODY = _HELLO_EXT.size - 2
+#: payload offset of the device nonce in a 1.1 HELLO
+HELLO_NONCE_OFFSET = _HELLO_EXT.size - NONCE_SIZE
 _SAMPLE_HEAD_SIZE = _SAMPLE_HEAD.size
 _V = PROTOCOL_VERSION
 _isfinite = math.isfinite
@@ -245,9 +268,18 @@ def _enc_hello(m: Hello, validate: bool) -> bytes:
         raise ProtocolError("value", f"HELLO name {m.name!r} must be ASCII") from None
     if len(name) > NAME_SIZE:
         raise ProtocolError("value", f"HELLO name {m.name!r} is {len(name)} bytes; at most {NAME_SIZE}")
-    return _HELLO.pack(
+    if m.min_period_us is None:
+        return _HELLO.pack(
+            _V, MsgType.HELLO, m.proto_min, m.proto_max, m.fw_version, m.n_channels, m.status,
+            m.period_us, m.watchdog_us, m.safe, m.u_min, m.u_max, name,
+        )
+    nonce = bytes(m.nonce or bytes(NONCE_SIZE))
+    if len(nonce) != NONCE_SIZE:
+        raise ProtocolError("value", f"HELLO nonce is {len(nonce)} bytes; exactly {NONCE_SIZE}")
+    return _HELLO_EXT.pack(
         _V, MsgType.HELLO, m.proto_min, m.proto_max, m.fw_version, m.n_channels, m.status,
         m.period_us, m.watchdog_us, m.safe, m.u_min, m.u_max, name,
+        m.min_period_us, m.max_period_us if m.max_period_us is not None else 0, m.auth, nonce,
     )
 
 
@@ -266,7 +298,11 @@ def _enc_fault(m: Fault, validate: bool) -> bytes:
 
 
 def _enc_query(m: Query, validate: bool) -> bytes:
-    return b"\x01\x10"
+    if m.nonce is None:
+        return b"\x01\x10"
+    if len(m.nonce) != NONCE_SIZE:
+        raise ProtocolError("value", f"QUERY nonce is {len(m.nonce)} bytes; exactly {NONCE_SIZE}")
+    return _QUERY_NONCE.pack(_V, MsgType.QUERY, bytes(m.nonce))
 
 
 def _enc_arm(m: Arm, validate: bool) -> bytes:
@@ -327,8 +363,13 @@ def _wrong_length(kind: MsgType, body: int, expected: int | str) -> ProtocolErro
 
 
 def _dec_hello(p: bytes) -> Hello:
+    if len(p) == _HELLO_EXT.size:
+        (_, _, pmin, pmax, fw, nch, status, period, wd, safe, umin, umax, raw,
+         min_p, max_p, auth, nonce) = _HELLO_EXT.unpack(p)
+        name = raw.split(b"\x00", 1)[0].decode("ascii", "replace")
+        return Hello(pmin, pmax, fw, nch, status, period, wd, safe, umin, umax, name, min_p, max_p, auth, nonce)
     if len(p) != _HELLO.size:
-        raise _wrong_length(MsgType.HELLO, len(p) - 2, _HELLO.size - 2)
+        raise _wrong_length(MsgType.HELLO, len(p) - 2, f"{_HELLO.size - 2} or {_HELLO_EXT.size - 2}")
     (_, _, pmin, pmax, fw, nch, status, period, wd, safe, umin, umax, raw) = _HELLO.unpack(p)
     name = raw.split(b"\x00", 1)[0].decode("ascii", "replace")
     return Hello(pmin, pmax, fw, nch, status, period, wd, safe, umin, umax, name)
@@ -356,8 +397,10 @@ def _dec_fault(p: bytes) -> Fault:
 
 
 def _dec_query(p: bytes) -> Query:
+    if len(p) == _QUERY_NONCE.size:
+        return Query(bytes(p[2:]))
     if len(p) != 2:
-        raise _wrong_length(MsgType.QUERY, len(p) - 2, 0)
+        raise _wrong_length(MsgType.QUERY, len(p) - 2, f"0 or {NONCE_SIZE}")
     return Query()
 
 

@@ -27,6 +27,12 @@ Choices the protocol leaves to the device, made here:
 - ARM while not CONFIGURED is ignored and counted in ``ignored['arm']``.
 - The device raises no sensor or hardware fault of its own (the injected faults of
   :mod:`.faults` change what the host sees instead), so the FAULT status bit stays clear.
+
+Binding (protocol 1.1, §6.7): a valid CONFIGURE binds the device to its sender; while bound the
+transport hands over only that sender's frames (others count in ``foreign``). The binding ends
+when the device is not ARMED and its host has been silent for RELEASE_US. With a key
+(:class:`~rigloop.protocol.auth.DeviceAuth`) every frame must carry a valid tag; a QUERY with a
+nonce starts a session only while the device is not bound.
 """
 
 from __future__ import annotations
@@ -38,9 +44,11 @@ from typing import Any, Callable, Mapping, Sequence
 
 import numpy as np
 
+from rigloop.protocol.auth import TRAILER_SIZE, DeviceAuth
 from rigloop.protocol.cobs import CobsError, cobs_decode
 from rigloop.protocol.framing import MAX_SERIAL_RUN, RejectCounters, decode_frame
 from rigloop.protocol.messages import (
+    AUTH_NONE,
     MAX_CHANNELS,
     NAME_SIZE,
     PROTOCOL_VERSION,
@@ -59,7 +67,8 @@ from rigloop.protocol.messages import (
     Stop,
     configure_problem,
 )
-from rigloop.protocol.sequence import is_newer
+from rigloop.protocol.sequence import MAX_JUMP, is_newer
+from rigloop.sim.binding import RELEASE_US, HostBinding  # noqa: F401 - RELEASE_US is public here
 from rigloop.sim.faults import FaultInjector
 
 #: Firmware version the simulated device reports in HELLO (major*256 + minor).
@@ -104,7 +113,7 @@ class Truth:
     static_gain: float    # dy_ss/du at the equilibrium for u (Plant.static_gain)
 
 
-class SimDevice:
+class SimDevice(HostBinding):
     """A device speaking protocol version 1 in front of a plant model.
 
     ``plant`` follows :class:`rigloop.plants.base.Plant`; ``sensor`` maps true channel values
@@ -117,7 +126,8 @@ class SimDevice:
                  channels: Sequence[str | SentChannel] | None = None,
                  period_us: int = 10_000, watchdog_us: int | None = None,
                  faults: FaultInjector | None = None, name: str | None = None,
-                 rx_observer: Callable[[dict], None] | None = None):
+                 rx_observer: Callable[[dict], None] | None = None,
+                 key: bytes | None = None, nonce_source: Callable[[], bytes] | None = None):
         self.plant = plant
         self.sensor = sensor
         sent = [c if isinstance(c, SentChannel) else SentChannel(str(c))
@@ -169,6 +179,14 @@ class SimDevice:
         self.ticks = 0
         self.overruns = 0
 
+        self.auth: DeviceAuth | None = DeviceAuth(key, nonce_source) if key is not None else None
+        self._hello_ext = False             # the host's QUERY carried a nonce: answer in the 1.1 form
+        self.bound = False                  # a CONFIGURE bound the device to its sender (§6.7)
+        self._bound_rx_us = 0               # last accepted frame from the bound host
+        self.bind_count = 0                 # accepted CONFIGUREs (each binds to its sender)
+        self.releases = 0
+        self.foreign = 0                    # frames from others while bound (counted, dropped)
+
         self.rejects = RejectCounters()
         self.ignored: dict[str, int] = {"command": 0, "arm": 0, "stop": 0, "deaf": 0,
                                         "device_message": 0}
@@ -200,9 +218,16 @@ class SimDevice:
         return s
 
     def hello(self) -> Hello:
+        if not self._hello_ext:
+            return Hello(PROTOCOL_VERSION, PROTOCOL_VERSION, FW_VERSION, len(self.channels),
+                         self.status & 0xFF, self.period_us, self.watchdog_us, self.safe,
+                         self.u_min, self.u_max, self.name)
+        auth = self.auth
         return Hello(PROTOCOL_VERSION, PROTOCOL_VERSION, FW_VERSION, len(self.channels),
                      self.status & 0xFF, self.period_us, self.watchdog_us, self.safe,
-                     self.u_min, self.u_max, self.name)
+                     self.u_min, self.u_max, self.name, MIN_PERIOD_US, MAX_PERIOD_US,
+                     auth.auth_mode if auth is not None else AUTH_NONE,
+                     auth.device_nonce if auth is not None else bytes(8))
 
     def truth(self, channel: str | None = None, order: int = 1) -> Truth:
         """True alpha and static gain of the plant at the present state and output."""
@@ -263,17 +288,23 @@ class SimDevice:
 
     def _on_frame(self, frame: bytes, now_us: int) -> list[Message]:
         try:
-            msg = decode_frame(frame)
+            msg = decode_frame(frame, self.auth)
         except ProtocolError as exc:
-            if exc.reason == "value" and frame[1] == MsgType.CONFIGURE:
+            if exc.reason == "value" and exc.msg_type == MsgType.CONFIGURE:
                 # A CONFIGURE breaking §4.7 still deserves its FAULT code 4 (and is counted
-                # under `value` there), so decode its fields without the codec's value check.
-                fields = _CONFIGURE_FIELDS.unpack(frame[2:-2])
+                # under `value` there), so decode its fields without the codec's value check
+                # (its tag, if any, was good: value comes after auth).
+                end = -2 - (TRAILER_SIZE if frame[1] & 0x80 else 0)
+                fields = _CONFIGURE_FIELDS.unpack(frame[2:end])
                 return self._on_configure(Configure(*fields), now_us)
             self._reject(exc.reason, now_us, exc.detail)
             return []
         self.rejects.accepted += 1
-        return self.handle(msg, now_us)
+        rejected = self.rejects.total_rejected
+        out = self.handle(msg, now_us)
+        if self.bound and self.rejects.total_rejected == rejected:
+            self._bound_rx_us = now_us      # only frames acted on keep the binding (§6.7)
+        return out
 
     def handle(self, msg: Message, now_us: int) -> list[Message]:
         """Act on one decoded message from the host; return what the device sends back."""
@@ -290,11 +321,10 @@ class SimDevice:
         if kind is Configure:
             return self._on_configure(msg, now_us)
         if kind is Query:
-            self._observe(now_us, msg, "accepted")
-            return [self.hello()]
-        # HELLO / SAMPLE / FAULT travel the other way: a host never sends them.
+            return self._on_query(msg, now_us)
+        # HELLO / SAMPLE / FAULT travel the other way (protocol 1.1 §3: rejected under `type`).
         self.ignored["device_message"] += 1
-        self._observe(now_us, msg, "ignored", note="device-to-host message")
+        self._reject("type", now_us, "a device-to-host message sent to the device", msg)
         return []
 
     def _on_command(self, msg: Command, now_us: int) -> list[Message]:
@@ -302,8 +332,9 @@ class SimDevice:
             self._reject("value", now_us, f"COMMAND value {msg.value} is not finite", msg)
             return []
         last = self._last_accepted_cmd
-        if last is not None and not is_newer(msg.seq, last):
-            self._reject("sequence", now_us, f"COMMAND seq {msg.seq} is not newer than {last}", msg)
+        if last is not None and not (is_newer(msg.seq, last) and ((msg.seq - last) & 0xFFFFFFFF) <= MAX_JUMP):
+            self._reject("sequence", now_us, f"COMMAND seq {msg.seq} is not newer than {last}, "
+                                             f"or more than {MAX_JUMP} ahead", msg)
             return []
         self._last_accepted_cmd = msg.seq
         if msg.answers == self.last_sample_seq:
@@ -361,6 +392,9 @@ class SimDevice:
         self.last_sample_seq = None                     # no SAMPLE awaits an answer now
         self.answered = False
         self.next_tick_us = now_us + self.period_us     # restart the sample clock
+        self.bound = True                               # the sender is now the host (§6.7)
+        self._bound_rx_us = now_us
+        self.bind_count += 1
         self._observe(now_us, msg, "accepted")
         return [self.hello()]
 
@@ -483,6 +517,8 @@ def _json_value(value: Any) -> Any:
         return str(value)       # strict JSON has no NaN/inf
     if isinstance(value, tuple):
         return [_json_value(v) for v in value]
+    if isinstance(value, bytes):
+        return value.hex()
     return value
 
 
@@ -512,7 +548,8 @@ def build_device(plant_kind: str, *, params: Mapping[str, Any] | None = None,
                  noise: float = 1.0, seed: int = 0, faults: Sequence[str] = (),
                  rx_observer: Callable[[dict], None] | None = None,
                  rig: Mapping[str, Any] | None = None,
-                 sensors: Mapping[str, Any] | None = None) -> SimDevice:
+                 sensors: Mapping[str, Any] | None = None,
+                 key: bytes | None = None) -> SimDevice:
     """A device with the plant's nominal sensors (noise std scaled by ``noise``; 0 = none).
 
     ``rig`` and ``sensors`` are the ``device.sim.rig`` / ``device.sim.sensors`` mappings
@@ -538,4 +575,4 @@ def build_device(plant_kind: str, *, params: Mapping[str, Any] | None = None,
     _check_channels([SentChannel(n) for n in names], plant)
     injector = FaultInjector(faults, seed=seed, channel_names=names)
     return SimDevice(plant, sensor=sensor, channels=channels, period_us=round(1e6 / rate_hz),
-                     faults=injector, rx_observer=rx_observer)
+                     faults=injector, rx_observer=rx_observer, key=key)

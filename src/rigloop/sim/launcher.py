@@ -66,6 +66,9 @@ def sim_arguments(cfg: Any, *, rx_log: str | os.PathLike | None = None,
             args += ["--offset", f"{c.name}={float(c.offset)!r}"]
     for spec in (*sim.faults, *extra_faults):
         args += ["--fault", str(spec)]
+    key_file = getattr(cfg.device, "key_file", None)
+    if key_file is not None:
+        args += ["--key-file", str(key_file)]      # the simulated rig holds the same key as its host
     if rx_log is not None:
         args += ["--rx-log", str(rx_log)]
     if trace is not None:

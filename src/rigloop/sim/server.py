@@ -3,7 +3,8 @@
 Transports:
 
 - UDP: bind HOST:PORT (port 0 picks a free one); one frame per datagram; replies go to the
-  address that last sent a valid frame.
+  address that last sent a valid frame — once a CONFIGURE has bound the device (protocol §6.7),
+  only the bound host's datagrams reach the device and the reply address stays the host's.
 - PTY: a pseudo-terminal in raw mode; the host opens the printed slave path as a serial port;
   frames are COBS-encoded with 0x00 delimiters. The sim keeps its own slave descriptor open so
   the port survives host reconnects.
@@ -48,7 +49,6 @@ from pathlib import Path
 from typing import IO, Any, Callable
 
 from rigloop.protocol.cobs import cobs_encode
-from rigloop.protocol.framing import encode_frame
 from rigloop.protocol.messages import Message, Sample
 from rigloop.sim.device import SimDevice
 
@@ -82,6 +82,7 @@ class UdpTransport:
         sock.setblocking(False)
         self.sock = sock
         self.peer: tuple[Any, ...] | None = None
+        self.bound_to: tuple[Any, ...] | None = None    # the host a CONFIGURE bound us to
         bound = sock.getsockname()
         shown = f"[{bound[0]}]" if family == socket.AF_INET6 else bound[0]
         self.url = f"udp://{shown}:{bound[1]}"
@@ -100,10 +101,17 @@ class UdpTransport:
                 return out
             except ConnectionError:
                 continue       # an ICMP report about an earlier datagram to a vanished host
+            if device.is_bound(now_us) and addr != self.bound_to:
+                device.note_foreign(now_us)     # never acted on, never changes the reply address
+                continue
             accepted = device.rejects.accepted
+            rejected = device.rejects.total_rejected
+            binds = device.bind_count
             out += device.feed_datagram(data, now_us)
-            if device.rejects.accepted != accepted:
-                self.peer = addr
+            if device.rejects.accepted != accepted and device.rejects.total_rejected == rejected:
+                self.peer = addr        # a frame rejected for any reason never moves the reply address
+            if device.bind_count != binds:
+                self.bound_to = addr
 
     @property
     def has_peer(self) -> bool:
@@ -222,7 +230,7 @@ class SimServer:
         self._quit_after_us = (None if options.quit_after_s is None
                                else int(round(options.quit_after_s * 1e6)))
         self.tx_results: dict[str, int] = {"sent": 0, "tx-error": 0, "no-peer": 0, "dropped": 0,
-                                           "corrupted": 0, "silenced": 0}
+                                           "corrupted": 0, "silenced": 0, "no-session": 0}
         try:
             self._open_logs()
         except OSError:
@@ -371,9 +379,11 @@ class SimServer:
         faults = self.device.faults
         transport = self.transport
         for msg in msgs:
-            frame: bytes | None = encode_frame(msg)
+            frame: bytes | None = self.device.encode(msg) if transport.has_peer else None
             if not transport.has_peer:
                 result = "no-peer"
+            elif frame is None:
+                result = "no-session"       # a keyed device before any QUERY: nothing goes out untagged
             else:
                 frame = faults.outgoing(frame, now_us) if faults else frame
                 if frame is None:

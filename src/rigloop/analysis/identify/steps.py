@@ -249,8 +249,10 @@ def analyse_bump(t: np.ndarray, y: np.ndarray, u: np.ndarray, *, order: int, pla
     warnings: list[str] = []
     gaps = int(np.sum(dt > 1.5 * ts))
     if gaps:
-        warnings.append(f"{gaps} gap(s) in the sample times (lost samples): the estimates assume "
-                        "equally spaced samples and may be off")
+        # protocol 1.1 §5: a gap in device time is a lost frame or a tick the device missed
+        # (OVERRUN; its seq stays contiguous): either way the samples are not equally spaced
+        warnings.append(f"{gaps} gap(s) in the sample times (frames lost on the link, or ticks the "
+                        "device missed): the estimates assume equally spaced samples and may be off")
     if t[-1] < schedule.t_end - 2.0 * ts:
         raise EstimationError(f"the recording ends at {t[-1]:.3g} s, before the bump test's "
                               f"{schedule.t_end:.3g} s")
