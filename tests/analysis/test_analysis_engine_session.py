@@ -37,7 +37,7 @@ def test_engine_session_report_agrees_with_the_engine_summary(tmp_path, capsys):
     plan_file.write_text(yaml.safe_dump(SHORT_PLAN))
     code = main(["run", str(CONFIGS / "demo_fan.yaml"), "--set", "device.sim.clock=lockstep",
                  "--set", "device.rate_hz=100", "--set", "device.watchdog_ms=100",
-                 "--plan", str(plan_file), "--out", str(tmp_path / "sessions"), "--quiet"])
+                 "--plan", str(plan_file), "--record-dir", str(tmp_path / "sessions"), "--quiet"])
     capsys.readouterr()
     assert code == 4, "completed with one failing criterion: rigloop run exits 4"
     [folder] = list((tmp_path / "sessions").iterdir())

@@ -206,7 +206,7 @@ def test_the_number_of_steps_follows_the_budget():
 @pytest.mark.parametrize("kwargs, option, words", [
     ({"step": 60.0}, "--step", ["--step 60", "[0, 100]", "at most 50"]),
     ({"at": 95.0}, "--step", ["default step 10", "at most 5"]),
-    ({"at": 120.0}, "--at", ["--at 120", "[0, 100]"]),
+    ({"at": 120.0}, "--operating-level", ["--operating-level 120", "[0, 100]"]),
     ({"step": 0.0}, "--step", ["--step 0", "non-zero"]),
     ({"hold_s": 0.01}, "--hold", ["--hold 0.01", ">= "]),
     ({"steps": 3}, "--steps", ["--steps 3", "even"]),
@@ -567,7 +567,7 @@ def test_identify_and_check_agree_on_the_shortest_window():
 
 # ------------------------------------------------------------------------ the command
 def test_a_step_leaving_the_actuator_range_exits_2_naming_step(tmp_path, capsys):
-    code = main(["identify", DEMO_FAN, "--step", "60", "--out", str(tmp_path), *LOCKSTEP])
+    code = main(["identify", DEMO_FAN, "--step", "60", "--record-dir", str(tmp_path), *LOCKSTEP])
     err = capsys.readouterr().err
     assert code == 2
     assert "--step 60" in err and "[0, 100]" in err and "at most 50" in err
@@ -575,10 +575,10 @@ def test_a_step_leaving_the_actuator_range_exits_2_naming_step(tmp_path, capsys)
 
 
 def test_bad_tau_cl_and_write_folder_exit_2_before_anything_moves(tmp_path, capsys):
-    assert main(["identify", DEMO_FAN, "--tau-cl", "0.001", "--out", str(tmp_path)]) == 2
+    assert main(["identify", DEMO_FAN, "--tau-cl", "0.001", "--record-dir", str(tmp_path)]) == 2
     assert "--tau-cl 0.001" in capsys.readouterr().err
-    assert main(["identify", DEMO_FAN, "--write", str(tmp_path / "no" / "x.yaml"),
-                 "--out", str(tmp_path)]) == 2
+    assert main(["identify", DEMO_FAN, "--snippet-file", str(tmp_path / "no" / "x.yaml"),
+                 "--record-dir", str(tmp_path)]) == 2
     assert "does not exist" in capsys.readouterr().err
     assert not any(tmp_path.iterdir())
 
@@ -595,7 +595,7 @@ def _flatten(tree: dict, prefix: str = "") -> list[str]:
 
 @pytest.fixture(scope="module")
 def fan_identified(tmp_path_factory):
-    """One bump test on the simulated fan (lockstep), as JSON, with --write."""
+    """One bump test on the simulated fan (lockstep), as JSON, with --snippet-file."""
     folder = tmp_path_factory.mktemp("fan_identify")
     snippet = folder / "suggested.yaml"
     import contextlib
@@ -603,8 +603,8 @@ def fan_identified(tmp_path_factory):
 
     out = io.StringIO()
     with contextlib.redirect_stdout(out):
-        code = main(["identify", DEMO_FAN, *LOCKSTEP, "--json", "--write", str(snippet),
-                     "--out", str(folder / "sessions")])
+        code = main(["identify", DEMO_FAN, *LOCKSTEP, "--json", "--snippet-file", str(snippet),
+                     "--record-dir", str(folder / "sessions")])
     return code, json.loads(out.getvalue()), snippet, folder
 
 
@@ -665,20 +665,20 @@ def test_suggested_ip_meets_the_fan_plan_and_a_ten_times_alpha_fails_it(fan_iden
     _, report, snippet, _ = fan_identified
     sets = [a for kv in _flatten(yaml.safe_load(snippet.read_text())) for a in ("--set", kv)]
     base = ["run", DEMO_FAN, "--plan", FAN_PLAN, *LOCKSTEP, "--quiet"]
-    code = main([*base, *sets, "--out", str(tmp_path / "good")])
+    code = main([*base, *sets, "--record-dir", str(tmp_path / "good")])
     out = capsys.readouterr().out
     assert code == 0, out
     assert "Test plan 'fan acceptance': PASSED" in out
     bad_alpha = 10 * report["suggestions"]["alpha"]
-    code = main([*base, *sets, "--set", f"control.alpha={bad_alpha!r}", "--out", str(tmp_path / "bad")])
+    code = main([*base, *sets, "--set", f"control.alpha={bad_alpha!r}", "--record-dir", str(tmp_path / "bad")])
     out = capsys.readouterr().out
     assert code == 4, out
     assert "Test plan 'fan acceptance': FAILED" in out
 
 
 def _motor_report(tmp_path, capsys, *extra) -> dict:
-    code = main(["identify", DEMO_MOTOR, *LOCKSTEP, *MOTOR_FREE, "--at", "3", "--step", "1.5",
-                 "--json", "--out", str(tmp_path), *extra])
+    code = main(["identify", DEMO_MOTOR, *LOCKSTEP, *MOTOR_FREE, "--operating-level", "3", "--step", "1.5",
+                 "--json", "--record-dir", str(tmp_path), *extra])
     captured = capsys.readouterr()
     assert code == 0, captured.err
     return json.loads(captured.out)
@@ -715,7 +715,7 @@ def test_motor_position_bump_test_order_2(tmp_path, capsys):
 @pytest.mark.slow
 def test_a_trip_exits_3_and_estimates_nothing(tmp_path, capsys):
     # the demo motor spins freely: a step of 2.4 V from rest runs (and coasts) past its 8 rad limit
-    code = main(["identify", DEMO_MOTOR, *LOCKSTEP, "--out", str(tmp_path)])
+    code = main(["identify", DEMO_MOTOR, *LOCKSTEP, "--record-dir", str(tmp_path)])
     captured = capsys.readouterr()
     assert code == 3
     assert "nothing estimated" in captured.err and "tripped" in captured.err
@@ -774,7 +774,7 @@ def test_geared_arm_through_the_engine_refuses_without_a_trip(tmp_path, capsys):
     (exit 1, a reason and what to try, no snippet) rather than suggest gains from a model that
     does not describe the rig."""
     arm = str(ROOT / "configs" / "scenarios" / "geared_arm_backlash.yaml")
-    code = main(["identify", arm, *LOCKSTEP, "--json", "--out", str(tmp_path)])
+    code = main(["identify", arm, *LOCKSTEP, "--json", "--record-dir", str(tmp_path)])
     captured = capsys.readouterr()
     assert code == 1, captured.err
     report = json.loads(captured.out)

@@ -50,3 +50,24 @@ def test_canonical_url_round_trips(url):
     parsed = parse_device_url(url)
     link = parsed.pop("link")
     assert device_url(link, **parsed) == url
+
+
+def test_serial_port_accepts_the_form_the_simulated_device_prints():
+    # `rigloop sim --pty` prints "rigloop-sim listening serial:///dev/pts/3"; pasting that
+    # into device.serial.port must work as the plain path does.
+    from pathlib import Path
+
+    from rigloop.config import ConfigError, load_config
+
+    demo = Path(__file__).resolve().parents[2] / "configs" / "demo_fan.yaml"
+    cfg = load_config(demo, ["device.link=serial", "device.serial.port=serial:///dev/pts/3"])
+    assert cfg.device.serial.port == "/dev/pts/3" and cfg.device.serial.baud == 921600
+    assert cfg.device.url == "serial:///dev/pts/3?baud=921600"
+    cfg = load_config(demo, ["device.link=serial", "device.serial.port=serial:///dev/pts/3?baud=115200"])
+    assert cfg.device.serial.baud == 115200
+    cfg = load_config(demo, ["device.link=serial", "device.serial.port=serial:///dev/pts/3?baud=115200",
+                             "device.serial.baud=57600"])
+    assert cfg.device.serial.baud == 57600          # the explicit key wins over the pasted URL
+    with pytest.raises(ConfigError) as caught:
+        load_config(demo, ["device.link=serial", "device.serial.port=serial://dev/pts/3"])
+    assert "device.serial.port" in str(caught.value) and "three slashes" in str(caught.value)

@@ -48,7 +48,7 @@ def session_folder(out: Path) -> Path | None:
 
 
 def start_run(out: Path, *extra: str) -> subprocess.Popen:
-    cmd = [sys.executable, "-m", "rigloop", "run", str(DEMO_FAN), "--out", str(out), "--quiet",
+    cmd = [sys.executable, "-m", "rigloop", "run", str(DEMO_FAN), "--record-dir", str(out), "--quiet",
            "--duration", "120", "--set", "device.sim.clock=realtime", "--set", "device.rate_hz=100", *extra]
     return subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=ENV)
 
@@ -106,7 +106,7 @@ def test_killed_engine_leaves_the_rig_to_the_device_watchdog(tmp_path):
         row = wait_until(watchdog_row, 30, "the device watchdog in the sim's trace")
         # A new session on the same device: its latched WATCHDOG must not trip the fresh run
         # (samples already in flight when ARM goes out still carry the old latch).
-        again = subprocess.run([sys.executable, "-m", "rigloop", "run", str(DEMO_FAN), "--out", str(tmp_path / "again"),
+        again = subprocess.run([sys.executable, "-m", "rigloop", "run", str(DEMO_FAN), "--record-dir", str(tmp_path / "again"),
                                 "--quiet", "--duration", "1", "--set", "device.rate_hz=100", "--set", "device.link=udp",
                                 "--set", f"device.udp.port={port}", "--set", "device.watchdog_ms=100"],
                                capture_output=True, text=True, env=ENV, timeout=60)

@@ -37,7 +37,7 @@ def test_lockstep_fan_run_of_20_s(tmp_path, capsys):
     from rigloop.cli import main
 
     out = tmp_path / "sessions"
-    code = main(["run", str(DEMO_FAN), "--duration", "20", "--out", str(out), "--quiet",
+    code = main(["run", str(DEMO_FAN), "--duration", "20", "--record-dir", str(out), "--quiet",
                  "--set", "device.sim.clock=lockstep"])
     printed = capsys.readouterr().out
     assert code == 0, printed
@@ -79,7 +79,7 @@ def test_a_device_that_never_answers_is_reported_and_recorded(tmp_path, capsys):
 
     out = tmp_path / "sessions"
     # UDP port 9 (discard) on loopback: nothing answers there
-    code = main(["run", str(DEMO_FAN), "--out", str(out), "--quiet",
+    code = main(["run", str(DEMO_FAN), "--record-dir", str(out), "--quiet",
                  "--set", "device.link=udp", "--set", "device.udp.port=9"])
     err = capsys.readouterr().err
     assert code == 1

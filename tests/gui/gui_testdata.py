@@ -10,12 +10,13 @@ import yaml
 REPO = Path(__file__).resolve().parents[2]
 DEMO_FAN = REPO / "configs" / "demo_fan.yaml"
 
-#: Overrides that keep the demo rig running on a busy shared test machine: the stale-data and
-#: overrun trips are tested elsewhere; here a host that is briefly slow must not trip the rig.
+#: Overrides that keep the demo rig running on a busy shared test machine: the stale-data,
+#: overrun and device-watchdog trips are tested elsewhere; here a host that is briefly slow must
+#: not trip the rig.
 #: The rate is pinned so that the figures the tests check (window lengths in samples) stay put.
 RATE_HZ = 100
 CALM_SETS = [f"device.rate_hz={RATE_HZ}", "limits.stale_periods=100", "limits.overruns.max=100000",
-             "duration_s=null", "limits.max_duration_s=600"]
+             "duration_s=null", "limits.max_duration_s=600", "device.watchdog_ms=2000"]
 
 
 def read_rx_log(path: Path) -> list[dict]:

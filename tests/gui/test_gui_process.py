@@ -1,4 +1,5 @@
-"""The desktop app as a real process: killed while the rig runs, and the screenshot command."""
+"""The desktop app as a real process: killed while the rig runs, stopped by SIGTERM, the
+screenshot command, and the demo's fall-back where Qt cannot open a window."""
 
 from __future__ import annotations
 
@@ -51,11 +52,11 @@ def _running_rows(folder):
 
 @pytest.fixture(scope="module")
 def killed_app_session(tmp_path_factory):
-    """Start the app with --autostart, wait for rows recorded while running, SIGKILL the app and
+    """Start the app with --connect-and-arm, wait for rows recorded while running, SIGKILL the app and
     wait until the engine has finished the session on its own. Returns the session folder."""
     tmp_path = tmp_path_factory.mktemp("killed")
     out = open(tmp_path / "gui.log", "w")
-    proc = subprocess.Popen(_gui(tmp_path, "--autostart"), env=_env(), stdout=out, stderr=subprocess.STDOUT)
+    proc = subprocess.Popen(_gui(tmp_path, "--connect-and-arm"), env=_env(), stdout=out, stderr=subprocess.STDOUT)
     try:
         folder = _wait_for(lambda: (session_dirs(tmp_path / "sessions") or [None])[-1], 60, "a session folder", proc)
         _wait_for(lambda: _running_rows(folder) >= 20, 60, "rows recorded while running", proc)
@@ -90,16 +91,77 @@ def test_after_the_app_is_killed_the_ramp_reaches_the_safe_value(killed_app_sess
 def test_screenshot_command_writes_a_png_of_the_window_size(tmp_path):
     from PyQt6.QtGui import QImage
 
-    from rigloop.gui.main_window import WINDOW_SIZE
-
     png = tmp_path / "window.png"
-    done = subprocess.run(_gui(tmp_path, "--screenshot", str(png), "--after", "1"), env=_env(),
+    done = subprocess.run(_gui(tmp_path, "--screenshot", str(png), "--screenshot-delay", "1",
+                               "--connect-and-arm", "--window-size", "1280x720"), env=_env(),
                           capture_output=True, text=True, timeout=180)
     assert done.returncode == 0, done.stderr[-2000:]
     image = QImage(str(png))
-    assert (image.width(), image.height()) == WINDOW_SIZE
+    assert (image.width(), image.height()) == (1280, 720)
     folder = session_dirs(tmp_path / "sessions")[-1]
     assert session_meta(folder)["outcome"] not in (None, "running")
+
+
+def test_screenshot_never_arms_without_being_asked(tmp_path):
+    # On a real rig an armed screenshot spins the motor: --screenshot alone only connects when
+    # asked (--connect), and the device then never receives ARM.
+    png = tmp_path / "idle.png"
+    done = subprocess.run(_gui(tmp_path, "--screenshot", str(png), "--screenshot-delay", "0.5", "--connect"),
+                          env=_env(), capture_output=True, text=True, timeout=180)
+    assert done.returncode == 0, done.stderr[-2000:]
+    assert png.exists()
+    folder = session_dirs(tmp_path / "sessions")[-1]
+    from gui_testdata import events_of
+
+    assert events_of(folder, "armed") == []
+    assert session_meta(folder)["summary"]["running_samples"] == 0
+
+
+def test_sigterm_closes_the_app_like_the_window_close(tmp_path):
+    """SIGTERM while the rig runs = closing the window: ramped stop, the engine ends the session,
+    shared memory is freed (no resource-tracker warning), exit code 0."""
+    out = open(tmp_path / "gui.log", "w")
+    err_path = tmp_path / "gui.err"
+    err = open(err_path, "w")
+    proc = subprocess.Popen(_gui(tmp_path, "--connect-and-arm"), env=_env(), stdout=out, stderr=err)
+    try:
+        folder = _wait_for(lambda: (session_dirs(tmp_path / "sessions") or [None])[-1], 60, "a session folder", proc)
+        _wait_for(lambda: _running_rows(folder) >= 20, 60, "rows recorded while running", proc)
+        proc.send_signal(signal.SIGTERM)
+        code = proc.wait(60)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait(10)
+        out.close()
+        err.close()
+    stderr = err_path.read_text(encoding="utf-8")
+    assert code == 0, stderr[-2000:]
+    assert "SIGTERM received" in stderr
+    for bad in ("leaked shared_memory", "resource_tracker", "Traceback"):
+        assert bad not in stderr, stderr[-2000:]
+    meta = session_meta(folder)
+    assert meta["outcome"] not in (None, "running")
+    assert (meta.get("trip") or {}).get("cause") != "front-end-lost"     # the app stopped it, not a timeout
+    with open(folder / "samples.csv", newline="", encoding="utf-8") as fh:
+        last = list(csv.DictReader(fh))[-1]
+    assert float(last["u_cmd"]) == 0.0        # the ramped stop reached the safe duty
+
+
+def test_demo_falls_back_to_headless_where_qt_cannot_open_a_window(tmp_path):
+    """`DISPLAY=:93 make demo` with no X server on :93: the demo says why and runs headless."""
+    env = {k: v for k, v in os.environ.items() if k not in ("QT_QPA_PLATFORM", "WAYLAND_DISPLAY")}
+    env["DISPLAY"] = ":93"
+    done = subprocess.run([sys.executable, "-m", "rigloop", "demo", "--duration", "1",
+                           "--set", f"recording.dir={tmp_path / 'sessions'}",
+                           "--set", "device.sim.clock=lockstep"],
+                          env=env, capture_output=True, text=True, timeout=180, cwd=tmp_path)
+    assert done.returncode == 0, done.stderr[-2000:]
+    assert "Qt cannot open a window here" in done.stderr
+    assert "libxcb-cursor0" in done.stderr and "QT_DEBUG_PLUGINS=1" in done.stderr
+    assert "running the same session headless" in done.stdout
+    assert "outcome: completed" in done.stdout
+    assert "Traceback" not in done.stderr
 
 
 def test_bad_config_is_reported_without_a_window(tmp_path):

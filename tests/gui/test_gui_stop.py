@@ -64,7 +64,7 @@ def test_escape_stops_even_with_focus_in_a_line_edit(qtbot, rig_window, tmp_path
 
 def test_stop_button_and_key_are_outside_the_tabs_and_say_the_shortcut(qtbot, rig_window):
     win = rig_window()
-    assert "Esc" in win.stop_button.text()
+    assert "Esc" in win.stop_button.caption() and "software stop" in win.stop_button.caption()
     for index in range(win.tabs.count()):
         win.tabs.setCurrentIndex(index)
         assert win.stop_button.isVisible()

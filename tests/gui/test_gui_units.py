@@ -210,8 +210,8 @@ def test_health_panel_shows_margins_and_status_in_words(qtbot, demo_cfg):
                     {"channel": "temp_c", "unit": "degC", "value": 72.0, "min": None, "max": 70.0, "margin": -2.0}],
         "samples": 10, "lost_samples": 1, "rejected": {"accepted": 9, "crc": 2, "total_rejected": 2},
         "latency_ms": {"p50": 0.1, "p99": 0.4}, "device_status": 1 | 4, "session_dir": "/tmp/s/x"})
-    assert panel.table.item(0, 3).text() == "near 50 rpm"
-    assert panel.table.item(1, 3).text() == "BEYOND -2 degC"
+    assert panel.table.item(0, 3).text() == "near 50"        # 1.5 % of the span: near at rest too
+    assert panel.table.item(1, 3).text() == "BEYOND -2"
     assert "2 rejected (crc 2)" in panel.frames.text()
     assert "watchdog expired" in panel.device.text()
 

@@ -95,8 +95,13 @@ def frames(n: int) -> list[bytes]:
     return [encode_frame(Sample(i, i * P, 0, 1.0, 0, (1.0, 2.0))) for i in range(n)]
 
 
+def armed(inj: FaultInjector, at_us: int = 0) -> FaultInjector:
+    inj.note_arm(at_us)
+    return inj
+
+
 def test_drop_rate_and_start_time_and_determinism():
-    inj = FaultInjector(["drop:p=0.2,at=1"], seed=7)
+    inj = armed(FaultInjector(["drop:p=0.2,at=1"], seed=7))
     before = [inj.outgoing(f, 999_999) for f in frames(200)]
     assert all(f is not None for f in before)                    # nothing lost before at=1 s
     after = [inj.outgoing(f, 1_000_000) for f in frames(2000)]
@@ -104,9 +109,9 @@ def test_drop_rate_and_start_time_and_determinism():
     # Binomial(2000, 0.2): mean 400, std 17.9; 5 std either side (common practice).
     assert 400 - 90 < lost < 400 + 90
     assert inj.counters["dropped"] == lost
-    again = FaultInjector(["drop:p=0.2,at=1"], seed=7)
+    again = armed(FaultInjector(["drop:p=0.2,at=1"], seed=7))
     assert [again.outgoing(f, 1_000_000) is None for f in frames(2000)] == [f is None for f in after]
-    other = FaultInjector(["drop:p=0.2,at=1"], seed=8)
+    other = armed(FaultInjector(["drop:p=0.2,at=1"], seed=8))
     assert [other.outgoing(f, 1_000_000) is None for f in frames(2000)] != [f is None for f in after]
 
 
@@ -125,10 +130,37 @@ def test_corrupted_frames_are_always_rejected_for_crc():
 
 
 def test_silent_sends_nothing_from_its_time():
-    inj = FaultInjector(["silent:at=0.5"])
+    inj = armed(FaultInjector(["silent:at=0.5"]))
     assert inj.outgoing(b"abcd", 499_999) == b"abcd"
     assert inj.outgoing(b"abcd", 500_000) is None
     assert inj.counters["silenced"] == 1
+
+
+def test_fault_times_count_from_the_first_arm_not_from_start_up():
+    # The walk-through's "broken sensor at t = 5 s" must not fire before the run when the host
+    # connects late: nothing timed acts before ARM; at= counts from the first ARM; a re-arm
+    # (after a trip, say) does not restart the clock; at=0 acts from start-up.
+    inj = FaultInjector(["silent:at=5", "corrupt:p=1"], seed=1)
+    assert inj.outgoing(b"abcd", 60_000_000) != b"abcd"     # corrupt (at=0): before any ARM
+    assert inj.counters["silenced"] == 0                    # silent waits for the ARM ...
+    inj.note_arm(60_000_000)
+    assert inj.outgoing(b"abcd", 64_999_999) is not None
+    inj.note_arm(64_000_000)                                # ... a second ARM changes nothing
+    assert inj.outgoing(b"abcd", 65_000_000) is None        # ... and acts 5 s after the first
+
+
+def test_device_starts_the_fault_clock_at_arm():
+    plant = make_plant("fan")
+    names = list(plant.channel_names)
+    dev = SimDevice(plant, channels=names, period_us=P,
+                    faults=FaultInjector(["nan:channel=temp_c,at=0.05"], seed=1, channel_names=names))
+    dev.start(0)
+    dev.handle(Configure(P, WD, 0.0, 0.0, 100.0), 0)
+    idle = [m for _ in range(30) for m in dev.tick() if isinstance(m, Sample)]   # 0.3 s unarmed
+    assert all(math.isfinite(s.channels[3]) for s in idle)
+    dev.handle(Arm(), idle[-1].t_us)
+    samples, _ = run(dev, 20)
+    assert [math.isnan(s.channels[3]) for s in samples] == [s.t_us >= idle[-1].t_us + 50_000 for s in samples]
 
 
 # --- channel faults through the device ------------------------------------------------------------

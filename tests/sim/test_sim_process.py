@@ -361,7 +361,7 @@ def test_start_sim_from_a_config_applies_channels_scaling_and_rate():
         "control": {"output": "speed_rpm", "alpha": 30.0},
     })
     with start_sim(cfg) as sim, UdpLink(sim.host, sim.port) as link:
-        assert "--exit-with-parent" in sim.args
+        assert "--quit-with-parent" in sim.args
         link.send(Query())
         hello = next_of(link, Hello)
         assert hello.n_channels == 2 and hello.period_us == 20_000
@@ -418,7 +418,7 @@ def test_exits_when_its_parent_dies(tmp_path):
     err = tmp_path / "sim.err"
     parent = ("import subprocess, sys\n"
               "p = subprocess.Popen([sys.executable, '-m', 'rigloop', 'sim', '--udp', '127.0.0.1:0',"
-              " '--exit-with-parent'], stdout=subprocess.PIPE, stderr=open(sys.argv[1], 'w'),"
+              " '--quit-with-parent'], stdout=subprocess.PIPE, stderr=open(sys.argv[1], 'w'),"
               " text=True)\n"
               "print(p.stdout.readline(), end='', flush=True)\n")
     out = subprocess.run([sys.executable, "-c", parent, str(err)], capture_output=True, text=True,

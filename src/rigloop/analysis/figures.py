@@ -19,6 +19,7 @@ from pathlib import Path
 import numpy as np
 from matplotlib.figure import Figure
 
+from rigloop import palette
 from rigloop.analysis.report import SessionAnalysis, fmt
 from rigloop.analysis.session import ACTIVE_STATE
 
@@ -28,7 +29,13 @@ MAX_PLOT_POINTS = 20_000
 MAX_RUN_COLUMNS = 6
 _FONT = {"label": 10, "tick": 9, "title": 12, "caption": 9, "marker": 8}
 _CAPTION_CHARS = 120   # fits the page width at the caption's font size
-_STYLE = ({"color": "tab:blue", "ls": "-"}, {"color": "tab:orange", "ls": "-"})
+#: palette line style -> matplotlib's
+_LS = {"solid": "-", "dashed": "--", "dotted": ":"}
+#: per overlaid session: output and applied actuator in the first colour, commanded in the second
+_STYLE = tuple({"color": main, "ls": "-"} for main, _ in palette.SESSIONS)
+_CMD_STYLE = tuple({"color": cmd, "ls": _LS[palette.style("u_cmd")] if k == 0 else "-."}
+                   for k, (_, cmd) in enumerate(palette.SESSIONS))
+_REF = palette.colour("ref")
 
 
 def session_figure(analyses: list[SessionAnalysis]) -> Figure:
@@ -111,12 +118,17 @@ def _draw_column(axes, analyses: list[SessionAnalysis], tags: list[str], *,
     for k, (tag, an) in enumerate(zip(tags, analyses)):
         s, style = an.session, _STYLE[k]
         t = s.samples["t"]
-        ax_y.plot(*_envelope(t, s.column("ref")), color="black" if k == 0 else "dimgray",
-                  ls="--" if k == 0 else ":", lw=1.2, label=f"{tag}reference r")
-        ax_y.plot(*_envelope(t, s.column("y")), lw=1.2, label=f"{tag}output y", **style)
-        ax_u.plot(*_envelope(t, s.column("u_cmd")), lw=0.9, alpha=0.7, color=style["color"],
-                  ls=":", label=f"{tag}commanded")
-        ax_u.plot(*_envelope(t, s.column("u")), lw=1.2, label=f"{tag}applied", **style)
+        # the output first, the reference dashed above it (a reference hidden under a good
+        # output is the figure's most common misreading)
+        ax_y.plot(*_envelope(t, s.column("y")), lw=1.4, label=f"{tag}output y", **style)
+        ax_y.plot(*_envelope(t, s.column("ref")), color=_REF if k == 0 else palette.NEUTRAL,
+                  ls="--" if k == 0 else ":", lw=1.1, zorder=3, label=f"{tag}reference r")
+        # commanded solid in its own colour, applied dashed above it: both stay visible
+        # where the device applied exactly what was commanded
+        ax_u.plot(*_envelope(t, s.column("u_cmd")), lw=1.6, label=f"{tag}commanded",
+                  **_CMD_STYLE[k])
+        ax_u.plot(*_envelope(t, s.column("u")), lw=1.1, zorder=3, label=f"{tag}applied (device)",
+                  color=style["color"], ls="--")
         ax_f.plot(*_envelope(t, s.column("f_hat")), lw=1.0, label=tag + r"$\hat{F}$", **style)
         ax_e.plot(*_envelope(t, s.column("e")), lw=1.0, label=f"{tag}e = y − r", **style)
         if k == 0:
@@ -126,11 +138,11 @@ def _draw_column(axes, analyses: list[SessionAnalysis], tags: list[str], *,
 
     for level, name in ((act["min"], "min"), (act["max"], "max")):
         if math.isfinite(level):
-            ax_u.axhline(level, color="dimgray", ls="--", lw=0.9)
+            ax_u.axhline(level, color=palette.NEUTRAL, ls=":", lw=0.9)
             ax_u.annotate(f"actuator {name} {fmt(level)}", xy=(1.0, level),
                           xycoords=("axes fraction", "data"),
                           xytext=(-4, 3 if name == "min" else -10), textcoords="offset points",
-                          ha="right", fontsize=_FONT["marker"], color="dimgray")
+                          ha="right", fontsize=_FONT["marker"], color=palette.NEUTRAL)
     ax_e.axhline(0.0, color="black", lw=0.6)
 
     if first_column:
@@ -237,8 +249,8 @@ def _mark_trips(axes, an: SessionAnalysis, tag: str) -> None:
         if not math.isfinite(t):
             continue
         for ax in axes:
-            ax.axvline(t, color="tab:red", lw=1.4)
+            ax.axvline(t, color=palette.colour("trip"), lw=1.4)
         axes[0].annotate(f"{tag}trip: {trip.get('cause') or 'trip'}", xy=(t, 0.0),
                          xycoords=("data", "axes fraction"), xytext=(3, 4),
-                         textcoords="offset points", fontsize=_FONT["marker"], color="tab:red",
+                         textcoords="offset points", fontsize=_FONT["marker"], color=palette.colour("trip"),
                          rotation=90, va="bottom")

@@ -1,7 +1,9 @@
 """``rigloop demo``: the main job on the built-in simulated fan rig.
 
-Opens the desktop app where a display exists; otherwise runs the same session headless and says
-so. This is what ``make demo`` runs.
+With a display Qt can use, the desktop app opens, connects to the simulated fan and starts the
+run by itself, the stop control in view. Otherwise - no display, or a display Qt cannot use (a
+stale ``DISPLAY`` in a remote shell, missing system libraries) - the same session runs headless,
+and the demo says why. This is what ``make demo`` runs.
 """
 
 from __future__ import annotations
@@ -11,7 +13,8 @@ import sys
 from pathlib import Path
 
 NAME = "demo"
-HELP = "run the built-in simulated fan rig (desktop app if a display exists, else headless)"
+HELP = ("run the built-in simulated fan rig: in the desktop app when a display is usable (it connects "
+        "and starts by itself), else headless")
 
 
 def demo_config_path() -> Path:
@@ -40,11 +43,20 @@ def run(args) -> int:
 
     path = args.config or str(demo_config_path())
     if not args.headless and has_display():
-        print(f"rigloop demo: a display is available, opening the desktop app on {path}")
-        from rigloop.commands.gui import launch_gui
+        from rigloop.gui.probe import probe_display
 
-        return launch_gui(path, args.set)
-    print(f"rigloop demo: no display found, running headless on the simulated rig ({path})")
+        probe = probe_display()
+        if probe.ok:
+            print(f"rigloop demo: a display is available, opening the desktop app on {path}; it connects "
+                  "to the simulated rig and starts the run (Stop: the red button or Esc)")
+            from rigloop.commands.gui import launch_gui
+
+            return launch_gui(path, args.set, arm=True, checked_display=True)
+        print(f"rigloop demo: {probe.advice()}", file=sys.stderr)
+        print(f"rigloop demo: running the same session headless instead ({path})")
+    else:
+        why = "--headless given" if args.headless else "no display found (DISPLAY/WAYLAND_DISPLAY unset)"
+        print(f"rigloop demo: {why}, running headless on the simulated rig ({path})")
     cfg = load_config_or_report(path, args.set)
     if cfg is None:
         return 2

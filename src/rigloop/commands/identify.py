@@ -31,14 +31,14 @@ HELP = ("bump test: ramp the actuator to an operating level and step it both way
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     add_config_arguments(parser)
-    parser.add_argument("--at", type=float, metavar="LEVEL",
+    parser.add_argument("--operating-level", dest="at", type=float, metavar="LEVEL",
                         help="operating level u0 of the actuator (default: the middle of its range; "
                              "halfway from safe to max when safe is the middle; the safe value for "
                              "an order-2 output)")
     parser.add_argument("--step", type=float, metavar="DU",
                         help="size of the step du (default: 10 %% of the actuator range; negative "
                              "steps down first); u0 ± du must stay inside the range")
-    parser.add_argument("--settle", type=float, metavar="S",
+    parser.add_argument("--initial-hold", dest="settle", type=float, metavar="S",
                         help="hold at u0 before the first step, s (default: until settled)")
     parser.add_argument("--hold", type=float, metavar="S",
                         help="hold after each step, s (default: until settled, within the budget)")
@@ -53,8 +53,15 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--tau-cl", type=float, metavar="S", dest="tau_cl",
                         help="wanted closed-loop time constant, s (default: the fitted tau / 5, at "
                              "least 5 sample periods and 3x the loop's dead time)")
-    parser.add_argument("--write", metavar="FILE", help="also write the YAML config snippet to FILE")
-    parser.add_argument("--out", metavar="DIR", help="folder for the session recording (overrides recording.dir)")
+    parser.add_argument("--snippet-file", dest="write", metavar="FILE",
+                        help="also write the suggested YAML config snippet to FILE")
+    parser.add_argument("--record-dir", dest="out", metavar="DIR",
+                        help="folder for the session recording (overrides recording.dir)")
+    # former names, hidden: scripts written for them keep working
+    parser.add_argument("--out", dest="out", help=argparse.SUPPRESS)
+    parser.add_argument("--at", dest="at", type=float, help=argparse.SUPPRESS)
+    parser.add_argument("--settle", dest="settle", type=float, help=argparse.SUPPRESS)
+    parser.add_argument("--write", dest="write", help=argparse.SUPPRESS)
     parser.add_argument("--json", action="store_true", help="print one JSON object instead of the text")
     parser.add_argument("--quiet", action="store_true", help="no live status line (on stderr)")
 
@@ -78,7 +85,7 @@ def run(args: argparse.Namespace) -> int:
     if args.write:
         folder = Path(args.write).resolve().parent
         if not folder.is_dir():
-            return _usage(f"--write {args.write}: the folder {folder} does not exist; create it first")
+            return _usage(f"--snippet-file {args.write}: the folder {folder} does not exist; create it first")
     a = cfg.actuator
     try:
         plan = plan_bump(a.min, a.max, a.safe, a.slew_per_s, rate_hz=cfg.device.rate_hz, at=args.at,
@@ -148,7 +155,7 @@ def run_bump_test(cfg, plan, *, tau_cl=None, out_dir=None, write=None, as_json=F
     if result.outcome == "tripped":
         t = result.trip
         why = f"{t.cause} at t={_g(t.t)} s: {t.message}" if t else result.stop_reason
-        hint = ("Choose an operating level and step (--at, --step) that keep every channel "
+        hint = ("Choose an operating level and step (--operating-level, --step) that keep every channel "
                 "inside its limits")
         if t is not None and t.channel:
             hint += (f"; if {t.channel} must move that far during the test, widen its limits for "

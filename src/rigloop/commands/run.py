@@ -7,6 +7,7 @@ then a clean recording).
 
 from __future__ import annotations
 
+import argparse
 import signal
 import sys
 
@@ -20,7 +21,9 @@ HELP = "run a recorded session headless on the configured rig (real or simulated
 def add_arguments(parser) -> None:
     add_config_arguments(parser)
     parser.add_argument("--duration", type=float, metavar="S", help="run length in seconds (overrides duration_s)")
-    parser.add_argument("--out", metavar="DIR", help="folder for the session recording (overrides recording.dir)")
+    parser.add_argument("--record-dir", dest="out", metavar="DIR",
+                        help="folder for the session recording (overrides recording.dir)")
+    parser.add_argument("--out", dest="out", help=argparse.SUPPRESS)   # the former name of --record-dir
     parser.add_argument("--plan", metavar="FILE", help="test plan YAML (overrides the config's plan)")
     parser.add_argument("--quiet", action="store_true", help="no live status line")
 

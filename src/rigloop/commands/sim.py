@@ -111,7 +111,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         default=[], help="offset of channel NAME for that scaling (repeatable)")
     parser.add_argument("--fault", metavar="SPEC", action="append", default=[],
                         help="inject a fault, KIND[:key=value,...] (repeatable): " + fault_syntax()
-                             + "; times (at=) are device seconds")
+                             + "; times (at=) are seconds after the first ARM the device receives, "
+                               "so a late host does not miss them; at=0 (the default of drop and "
+                               "corrupt) acts from start-up")
     parser.add_argument("--rx-log", metavar="FILE", type=Path, default=None,
                         help="write one JSON line per received frame (device time, type, "
                              "fields, outcome: accepted, ignored or rejected with its reason) "
@@ -128,9 +130,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--key-file", metavar="PATH", type=Path, default=None,
                         help="the rig's pre-shared key (hex, a file only its owner can read): every "
                              "frame must then carry a valid tag (docs/protocol.md §14)")
-    parser.add_argument("--exit-with-parent", action="store_true",
-                        help="exit when the process that started this one ends (always on with "
-                             "--clock lockstep)")
+    parser.add_argument("--quit-with-parent", action="store_true",
+                        help="quit when the process that started this one ends, as when the engine "
+                             "starts the simulated device itself (always on with --clock lockstep)")
+    parser.add_argument("--exit-with-parent", dest="quit_with_parent", action="store_true",
+                        help=argparse.SUPPRESS)   # the former name, hidden
 
 
 class _UsageError(Exception):
@@ -240,7 +244,7 @@ def build_from_args(args: argparse.Namespace):
                           noise=args.noise, seed=args.seed, faults=args.fault,
                           rig=args.rig, sensors=args.sensors, key=key)
     options = ServerOptions(clock=args.clock, quit_after_s=args.quit_after,
-                            exit_with_parent=args.exit_with_parent, rx_log=args.rx_log,
+                            exit_with_parent=args.quit_with_parent, rx_log=args.rx_log,
                             trace=args.trace,
                             lockstep_wait_s=None if args.lockstep_wait_ms is None else args.lockstep_wait_ms / 1000)
     for option, path in (("--rx-log", args.rx_log), ("--trace", args.trace)):

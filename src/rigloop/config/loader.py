@@ -55,6 +55,25 @@ def _merge_url(mapping: dict, problems: list[Problem]) -> None:
             target.update(values)
 
 
+def _serial_port_url(mapping: dict, problems: list[Problem]) -> None:
+    """Accept ``device.serial.port: serial:///dev/pts/3[?baud=N]`` - the form ``rigloop sim --pty``
+    prints - as the port path it names (and its baud, unless ``device.serial.baud`` is given)."""
+    device = mapping.get("device")
+    serial = device.get("serial") if isinstance(device, dict) else None
+    port = serial.get("port") if isinstance(serial, dict) else None
+    if not isinstance(port, str) or not port.strip().lower().startswith("serial:"):
+        return
+    try:
+        parsed = parse_device_url(port.strip())
+    except ValueError as error:
+        message = str(error).removeprefix(f"{port.strip()!r}: ")
+        problems.append(Problem("device.serial.port", port, message))
+        return
+    serial["port"] = parsed["serial"]["port"]
+    if "baud" in parsed["serial"] and serial.get("baud") is None:
+        serial["baud"] = parsed["serial"]["baud"]
+
+
 def _parse(mapping: object, *, base_dir: Path, source: str, locations: dict[str, str],
            source_path: Path | None) -> Config:
     problem = _top_level_problem(mapping)
@@ -63,6 +82,7 @@ def _parse(mapping: object, *, base_dir: Path, source: str, locations: dict[str,
     work = copy.deepcopy(dict(mapping))  # type: ignore[arg-type]
     problems: list[Problem] = []
     _merge_url(work, problems)
+    _serial_port_url(work, problems)
     walker = SchemaWalker()
     root = walker.run(work)
     problems.extend(walker.problems)

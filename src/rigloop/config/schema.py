@@ -482,7 +482,8 @@ SCHEMA: tuple[Key, ...] = (
         nullable=True),
     Key("device.serial", Section(), {}, "serial settings (link: serial)"),
     Key("device.serial.port", Text(), "/dev/ttyACM0",
-        "serial port name (/dev/ttyACM0, COM3) or pyserial URL"),
+        "serial port name (/dev/ttyACM0, COM3), the serial:///dev/pts/N form `rigloop sim --pty` "
+        "prints, or a pyserial URL"),
     Key("device.serial.baud", Integer(ge=1), 921600,
         "baud rate (a USB CDC device ignores it; a UART needs it)"),
     # ---- channels and actuator

@@ -70,7 +70,9 @@ class Engine(SessionLifecycle, FrontEndRequests):
         self._wake_r.setblocking(False)
         self._wake_w.setblocking(False)
         self._log_handler: logging.Handler | None = None
-        self.trip: Trip | None = None
+        self.trip: Trip | None = None           # the session's first trip (session.yaml)
+        self.latched_trip: Trip | None = None   # the trip latched now, or last (the front end's banner)
+        self.runs_completed = 0                 # runs that reached duration_s (front end: back to idle)
         self.pending_trip: Trip | None = None
         self.stop_reason = ""
         self.outcome = "running"
@@ -329,15 +331,23 @@ class Engine(SessionLifecycle, FrontEndRequests):
         self._check_tail()
 
     def _start_blend(self, y: float) -> None:
-        """Start the profile from where the rig is: blend from the measured y into r(0)."""
-        from rigloop.control.reference import StartFrom
+        """Start the configured profile from its beginning, from where the rig is: blend from the
+        measured y into r(0). Every arm does this (a re-arm after a trip or a completed run starts
+        the profile afresh, not from the previous arm's blend or a manual setpoint)."""
+        from rigloop.control.reference import StartFrom, build_reference
 
-        r0 = self.reference.at(0.0)[0]
+        base = build_reference(self.ref_spec, base_dir=self.cfg.base_dir)
+        self.reference = base
+        r0 = base.at(0.0)[0]
         if not math.isfinite(y) or y == r0:
             return
         blend = float(self.ref_spec.get("blend_s") or 1.0)
-        self.reference = StartFrom(self.reference, y, blend)
-        self._emit(EventRecord("profile", f"start blend from {y:.6g} to {r0:.6g} over {blend:g} s", t=self.t_last))
+        self.reference = StartFrom(base, y, blend)
+        out = self.cfg.control.output
+        unit = next((f" {c.unit}" for c in self.cfg.channels if c.name == out and c.unit), "")
+        self._emit(EventRecord("profile", f"armed with {out} at {y:.6g}{unit}: the reference starts there and "
+                                          f"blends into the profile's first level {r0:.6g}{unit} over {blend:g} s",
+                               t=self.t_last))
 
     def _send_stop(self, reason) -> None:
         """Write STOP to the wire now and remember to check that the device latched it."""
@@ -415,6 +425,8 @@ class Engine(SessionLifecycle, FrontEndRequests):
                     self._tail_until = t + TRIP_TAIL_S
             else:
                 self._transition("ramped_out")
+                if self._ramp_then in ("complete", "idle"):
+                    self.runs_completed += 1
                 if self._ramp_then == "complete":
                     self.outcome = "completed"
                     self._done = True
@@ -443,6 +455,7 @@ class Engine(SessionLifecycle, FrontEndRequests):
         if self.trip is None:
             self.trip = trip
         if trip.stop == "ramped" and self.state is State.RUNNING:
+            self.latched_trip = trip
             self.pending_trip = trip
             self.state = State.STOPPING
             log.warning("trip (ramped stop): %s", trip.message)
@@ -451,6 +464,7 @@ class Engine(SessionLifecycle, FrontEndRequests):
             return
         if self.state is State.STOPPING and self.pending_trip is not None and trip.stop == "ramped":
             return
+        self.latched_trip = trip
         reason = StopReason.ESTOP if trip.cause == "e-stop" else StopReason.TRIP
         try:
             self._send_stop(reason)           # first: the wire

@@ -279,7 +279,8 @@ class SessionLifecycle:
 
     def status(self) -> dict:
         c = self.link.counters if self.link is not None else None
-        trip = self.trip.as_dict() if self.trip is not None else None
+        # the banner shows the trip latched now, not the session's first one (session.yaml's)
+        trip = self.latched_trip.as_dict() if self.latched_trip is not None else None
         return {
             "state": self.state.value,
             "t": self.t_last,
@@ -301,6 +302,7 @@ class SessionLifecycle:
             "replies": list(self.replies),
             "rate_hz": self.cfg.device.rate_hz,
             "done": self._done,
+            "runs_completed": self.runs_completed,
         }
 
     def _summary(self) -> dict:

@@ -25,7 +25,7 @@ class ConnectionBar(QWidget):
     def __init__(self, parent=None):
         super().__init__(parent)
         self.config_label = QLabel("no config")
-        self.config_label.setMinimumWidth(160)
+        self.config_label.setMinimumWidth(120)
         self.config_label.setObjectName("configPath")
         self.open_button = QPushButton("Open config...")
         self.open_button.clicked.connect(self._pick_file)
@@ -57,13 +57,13 @@ class ConnectionBar(QWidget):
         # serial
         self.serial_box = QComboBox()
         self.serial_box.setEditable(True)
-        self.serial_box.setMinimumWidth(130)
+        self.serial_box.setMinimumWidth(100)
         self.serial_box.setToolTip("Serial port (pick from the list or type a name or pyserial URL)")
         self.refresh_button = QPushButton("Refresh")
         self.refresh_button.setToolTip("List the serial ports present now")
         self.refresh_button.clicked.connect(self.refresh_ports)
         self.baud_edit = QLineEdit("921600")
-        self.baud_edit.setMaximumWidth(70)
+        self.baud_edit.setMaximumWidth(64)
         self.baud_edit.setToolTip("Baud rate (a USB CDC device ignores it)")
         ser = QWidget()
         sl = QHBoxLayout(ser)
@@ -101,10 +101,8 @@ class ConnectionBar(QWidget):
         grid.addWidget(self.stack, 1, 2)
         grid.addWidget(self.connect_button, 1, 3)
         grid.setColumnStretch(2, 1)
-        self.connect_button.setFixedWidth(120)
-        self.open_button.setMinimumWidth(112)
-        self.demo_button.setMinimumWidth(64)
-        self.setMaximumWidth(620)
+        self.connect_button.setFixedWidth(110)
+        self.setMaximumWidth(600)
 
     # ------------------------------------------------------------------ config
     def set_config_path(self, path: str | None, rig: str | None = None) -> None:

@@ -87,11 +87,13 @@ class LiveTraces(QWidget):
     def set_window(self, seconds: int) -> None:
         self.window_box.setCurrentIndex(WINDOWS_S.index(seconds))
 
-    def start_session(self, cfg, fields) -> None:
-        """New engine, new session: fresh buffer, curves for this rig, tick boxes for its channels."""
-        self.cfg = cfg
-        capacity = min(MAX_HELD_ROWS, max(1000, int(cfg.device.rate_hz * _HOLD_S)))
-        self.buffer = TraceBuffer(fields, capacity)
+    def preview(self, cfg) -> None:
+        """A config is loaded, nothing is connected: label the empty plots for this rig."""
+        if self.buffer is not None and len(self.buffer):
+            return                      # a finished session stays on screen until the next one
+        self._configure_plots(cfg)
+
+    def _configure_plots(self, cfg) -> None:
         self.units = {c.name: c.unit for c in cfg.channels}
         lim = cfg.limits.channels.get(cfg.control.output)
         a = cfg.actuator
@@ -99,6 +101,13 @@ class LiveTraces(QWidget):
                              actuator=a.name, actuator_unit=a.unit, u_min=a.min, u_max=a.max,
                              order=cfg.control.order, out_min=lim.min if lim else None,
                              out_max=lim.max if lim else None)
+
+    def start_session(self, cfg, fields) -> None:
+        """New engine, new session: fresh buffer, curves for this rig, tick boxes for its channels."""
+        self.cfg = cfg
+        capacity = min(MAX_HELD_ROWS, max(1000, int(cfg.device.rate_hz * _HOLD_S)))
+        self.buffer = TraceBuffer(fields, capacity)
+        self._configure_plots(cfg)
         for box in self.channel_boxes.values():
             self.channel_row.removeWidget(box)
             box.deleteLater()
@@ -121,7 +130,7 @@ class LiveTraces(QWidget):
         self.channel_boxes[name].setChecked(on)
 
     def _channels_changed(self) -> None:
-        self.plots.set_extra_channels([n for n, b in self.channel_boxes.items() if b.isChecked()])
+        self.plots.set_extra_channels([n for n, b in self.channel_boxes.items() if b.isChecked()], self.units)
         self._dirty = True
         if self.paused:
             self._show_all()

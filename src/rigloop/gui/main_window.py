@@ -17,6 +17,7 @@ from PyQt6.QtCore import Qt, QTimer, pyqtSignal
 from PyQt6.QtWidgets import (QApplication, QGridLayout, QHBoxLayout, QMainWindow, QPushButton,
                              QScrollArea, QSplitter, QTabWidget, QVBoxLayout, QWidget)
 
+from rigloop.gui.config_warnings import ConfigWarningStrip
 from rigloop.gui.connection_bar import ConnectionBar
 from rigloop.gui.device_choice import choice_from_config, overrides_for
 from rigloop.gui.engine_session import EngineSession
@@ -26,9 +27,10 @@ from rigloop.gui.past_sessions import PastSessions
 from rigloop.gui.state_banner import StateBanner
 from rigloop.gui.stop_control import STOP_KEY_TEXT, StopButton, StopKeyFilter
 from rigloop.gui.tuning_panel import TuningPanel
-from rigloop.gui.words import describe_trip, state_headline
+from rigloop.gui.words import HELP_TEXT, describe_completed_run, describe_trip, state_headline
 
 WINDOW_SIZE = (1400, 860)
+
 CLOSE_GRACE_S = 5.0
 
 
@@ -49,6 +51,8 @@ class MainWindow(QMainWindow):
         self.trip_text = ""
         self.last_final: dict | None = None
         self._arm_when_idle = False
+        self._runs_completed = 0
+        self.config_warnings: list[str] = []
         self._close_pending = False
         self._really_close = False
         self.session = EngineSession(self, client_factory=client_factory)
@@ -67,6 +71,8 @@ class MainWindow(QMainWindow):
         self._close_timer = QTimer(self)
         self._close_timer.setSingleShot(True)
         self._close_timer.timeout.connect(self._close_timed_out)
+        # Ctrl+Q (Cmd+Q on macOS) quits the way closing the window does
+        self.stop_filter.quit_requested.connect(self.close)
         self._on_state("disconnected")
         if config_path:
             self.open_config(config_path)
@@ -113,6 +119,9 @@ class MainWindow(QMainWindow):
         self.tuning = TuningPanel()
         self.health = HealthPanel()
         side = QWidget()
+        side.setObjectName("sidePanel")
+        # a point smaller than the rest: tuning and health fit a 1280 x 720 screen unscrolled
+        side.setStyleSheet("QWidget#sidePanel, QWidget#sidePanel QWidget { font-size: 9pt; }")
         sl = QVBoxLayout(side)
         sl.setContentsMargins(0, 0, 4, 0)
         sl.setSpacing(6)
@@ -129,14 +138,31 @@ class MainWindow(QMainWindow):
         split.setStretchFactor(0, 1)
         split.setSizes([WINDOW_SIZE[0] - 420, 420])
 
+        self.warning_strip = ConfigWarningStrip()
+
         central = QWidget()
         lay = QVBoxLayout(central)
         lay.setContentsMargins(8, 8, 8, 4)
-        lay.setSpacing(8)
+        lay.setSpacing(6)
         lay.addLayout(top)
+        lay.addWidget(self.warning_strip)
         lay.addWidget(split, 1)
         self.setCentralWidget(central)
-        self.statusBar().showMessage(f"Stop: the red button or the {STOP_KEY_TEXT} key, from anywhere in the window.")
+        self.statusBar().showMessage(f"Software stop: the red button or the {STOP_KEY_TEXT} key, from anywhere in "
+                                     "the window. It is not an emergency-stop device. Ctrl+Q quits.")
+        self.help_button = QPushButton("Help")
+        self.help_button.setFlat(True)
+        self.help_button.setToolTip("Keys, the stop control and what it is not")
+        self.help_button.clicked.connect(self.show_help)
+        self.statusBar().addPermanentWidget(self.help_button)
+
+    def show_help(self) -> None:
+        from PyQt6.QtWidgets import QMessageBox
+
+        box = QMessageBox(QMessageBox.Icon.Information, "rigloop - help", HELP_TEXT, parent=self)
+        box.setTextFormat(Qt.TextFormat.RichText)
+        box.open()
+        self.help_box = box
 
     # ------------------------------------------------------------------ config and device
     def open_demo(self) -> None:
@@ -163,6 +189,8 @@ class MainWindow(QMainWindow):
         self.connection.set_choice(choice_from_config(cfg), sim_text)
         self.past.set_root(Path(self.out_dir) if self.out_dir else cfg.recording.dir)
         self.tuning.bind(self.session, cfg)      # shows the config's values until connected
+        self.live.preview(cfg)                   # labelled, empty plots until the first sample
+        self.config_warnings = self.warning_strip.show_for(cfg)
         self.banner.set_state("disconnected", f"Config {Path(path).name} loaded (rig {cfg.rig}). "
                                               "Check the device, then Connect.")
         return True
@@ -199,6 +227,8 @@ class MainWindow(QMainWindow):
         self.cfg = cfg
         self.trip_text = ""
         self.last_final = None
+        self._runs_completed = 0
+        self.config_warnings = self.warning_strip.show_for(cfg)
         self.session.start(cfg, sim_extra=self.sim_extra, out_dir=self.out_dir)
         self.live.start_session(cfg, self.session.fields)
         self.tuning.bind(self.session, cfg)
@@ -215,7 +245,7 @@ class MainWindow(QMainWindow):
             self._on_ended(final)
 
     def connect_and_arm(self) -> bool:
-        """Connect, then arm as soon as the engine reports idle (used by --autostart)."""
+        """Connect, then arm as soon as the engine reports idle (``--connect-and-arm``, the demo)."""
         self._arm_when_idle = True
         ok = self.connect_rig()
         if not ok:
@@ -252,7 +282,7 @@ class MainWindow(QMainWindow):
         elif state == "disconnected":
             pass  # _on_ended or open_config says why
         else:
-            if state == "idle":
+            if state in ("idle", "running"):
                 self.trip_text = ""
             detail = None
             if state == "running" and self.cfg is not None:
@@ -276,11 +306,24 @@ class MainWindow(QMainWindow):
         if self._close_pending and state in ("idle", "tripped"):
             self._finish_close()
 
+    def _note_completed_runs(self, st: dict) -> None:
+        """A run that reached duration_s returns the rig to idle: say so, and where it is recorded."""
+        runs = st.get("runs_completed")
+        if not isinstance(runs, int) or runs <= self._runs_completed:
+            return
+        self._runs_completed = runs
+        duration = self.cfg.duration_s if self.cfg is not None else None
+        text = describe_completed_run(runs, duration, st.get("session_dir"))
+        if self.state == "idle":
+            self.banner.set_state("idle", text)
+        self.statusBar().showMessage(text, 20000)
+
     def _units(self) -> dict[str, str]:
         cfg = self.cfg or self.base_cfg
         return {c.name: c.unit for c in cfg.channels} if cfg is not None else {}
 
     def _on_status(self, st: dict) -> None:
+        self._note_completed_runs(st)
         self.health.update_from_status(st)
         self.tuning.update_from_status(st)
         self.live.note_status(st)
@@ -371,6 +414,8 @@ class MainWindow(QMainWindow):
             final = self.session.close()
             if final:
                 self.last_final = final
+        for plots in (self.live.plots, self.past.plots):
+            plots.shut_down()
         if not getattr(self, "_closed_emitted", False):
             self._closed_emitted = True
             self.closed.emit()

@@ -143,7 +143,9 @@ class PastSessions(QWidget):
                              order=int(ctl.get("order", 1) or 1), out_min=lim.get("min"), out_max=lim.get("max"))
         extra = [n for n in (c.get("name") for c in s.config.get("channels") or () if isinstance(c, dict))
                  if n and n != s.output_name]
-        self.plots.set_extra_channels(extra)
+        units = {str(c.get("name")): str(c.get("unit") or "") for c in s.config.get("channels") or ()
+                 if isinstance(c, dict)}
+        self.plots.set_extra_channels(extra, units)     # one panel (and axis) per unit
         self.plots.show_rows(self.buffer, follow=False)
         for trip in session_trips(s):           # session.yaml's trip, other trips and e-stops
             if trip.get("t") is not None:

@@ -21,6 +21,8 @@ class StateBanner(QFrame):
         self.headline = QLabel()
         self.headline.setObjectName("stateHeadline")
         self.headline.setAlignment(Qt.AlignmentFlag.AlignLeft | Qt.AlignmentFlag.AlignVCenter)
+        # wraps rather than widening the window when a long state word meets a narrow screen
+        self.headline.setWordWrap(True)
         self.detail = QLabel()
         self.detail.setObjectName("stateDetail")
         self.detail.setWordWrap(True)
@@ -39,7 +41,7 @@ class StateBanner(QFrame):
         bg, fg = theme.STATE_COLOURS.get(state, theme.STATE_COLOURS["disconnected"])
         self.setStyleSheet(
             f"QFrame#stateBanner {{ background: {bg}; border-radius: 8px; }}"
-            f"QLabel#stateHeadline {{ color: {fg}; font-size: 21pt; font-weight: 800; }}"
+            f"QLabel#stateHeadline {{ color: {fg}; font-size: 18pt; font-weight: 800; }}"
             f"QLabel#stateDetail {{ color: {fg}; font-size: 10.5pt; }}")
         self.headline.setText(state_headline(state))
         self.headline.setAccessibleName(f"Rig state: {state_headline(state)}")

@@ -1,11 +1,17 @@
-"""Colours and the style sheet of the app: a dark, low-glare panel look for a bench at night.
+"""Colours and the style sheet of the app: dark, low-glare controls around light plot panels.
 
-Colours carry meaning only together with words (see :mod:`rigloop.gui.words`). The e-stop control
-uses the usual red on yellow of emergency-stop devices (ISO 13850 asks red on a yellow
-background for the hardware actuator; the screen control borrows the convention).
+Colours carry meaning only together with words (see :mod:`rigloop.gui.words`). Trace colours come
+from :mod:`rigloop.palette` (a colour-blind-safe set, shared with the report figures), drawn on
+the light surface that set is made for.
+
+The software stop is deliberately *not* red on yellow: the machine-safety standards reserve that
+combination for the hardwired emergency-stop device (IEC 60204-1, ISO 13850), and a screen button
+is not one. It is a red button with a white border and the words "software stop".
 """
 
 from __future__ import annotations
+
+from rigloop import palette
 
 BG = "#12171e"
 PANEL = "#1a2029"
@@ -28,25 +34,18 @@ STATE_COLOURS = {
     "tripped": ("#b3261e", "#fff6f5"),
 }
 
-ESTOP_RED = "#c8231b"
-ESTOP_RED_DOWN = "#8f140f"
-ESTOP_YELLOW = "#f5c518"
+#: the software stop: red, a white border, no yellow anywhere near it
+STOP_RED = "#b81d18"
+STOP_RED_DOWN = "#7d100c"
+STOP_BORDER = "#f4f4f4"
 
-#: trace name -> colour
-TRACE_COLOURS = {
-    "y": "#f5b942",
-    "ref": "#e8eef4",
-    "u_cmd": "#5aa9e6",
-    "u": "#a7d8ff",
-    "f_hat": "#c68be3",
-    "e": "#ef7b64",
-    "limit": "#e5484d",
-    "bound": "#8d99a8",
-    "trip": "#ff5a52",
-    "cursor": "#cfd8e3",
-}
+#: plots: the light surface of the colour-blind-safe palette
+PLOT_BG = palette.PLOT_BACKGROUND
+PLOT_TEXT = palette.PLOT_TEXT
+#: trace name -> colour (palette.TRACES also gives each a line style)
+TRACE_COLOURS = {name: colour for name, (colour, _style) in palette.TRACES.items()}
 #: colours for extra channels, in the order they are ticked
-EXTRA_COLOURS = ("#6fd3a8", "#e6d36f", "#f08fc0", "#8fb8f0", "#f0a35e", "#b5e06a")
+EXTRA_COLOURS = palette.EXTRA
 
 STYLE_SHEET = f"""
 QWidget {{ background: {BG}; color: {TEXT}; font-size: 10pt; }}

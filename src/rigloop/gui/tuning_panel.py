@@ -18,16 +18,16 @@ from rigloop.gui.validation import (allowed_text, check_blend, check_setpoint, c
                                     setpoint_range_text)
 from rigloop.gui.words import fmt_num
 
-#: key -> (label, editor kind)
+#: key -> (label, editor kind), laid out two per row (left, right)
 FIELDS = (
     ("control.law", "Law", "choice"),
+    ("control.estimator.kind", "Estimator", "choice"),
     ("control.alpha", "alpha", "number"),
     ("control.kp", "Kp", "number"),
     ("control.ki", "Ki", "number"),
     ("control.kd", "Kd", "number"),
-    ("control.estimator.kind", "Estimator", "choice"),
-    ("control.estimator.window_s", "Window [s]", "number"),
-    ("control.derivative_window_s", "e' window [s]", "number"),
+    ("control.estimator.window_s", "F window [s]", "number"),
+    ("control.derivative_window_s", "Error-slope window [s]", "number"),
 )
 
 
@@ -75,7 +75,7 @@ class TuningPanel(QGroupBox):
         grid.setHorizontalSpacing(6)
         grid.setVerticalSpacing(1)
         row = 0
-        for key, label, kind in FIELDS:
+        for index, (key, label, kind) in enumerate(FIELDS):
             if kind == "choice":
                 editor = QComboBox()
                 editor.addItems([str(o) for o in KEYS[key].type.options])
@@ -96,12 +96,16 @@ class TuningPanel(QGroupBox):
             message.setObjectName(f"tune-msg:{key}")
             name = QLabel(label)
             name.setToolTip(KEYS[key].doc)
-            grid.addWidget(name, row, 0)
-            grid.addWidget(editor, row, 1)
-            grid.addWidget(message, row + 1, 0, 1, 2)
+            name.setWordWrap(True)
+            right = index % 2
+            grid.addWidget(name, row, 2 * right)
+            grid.addWidget(editor, row, 2 * right + 1)
+            grid.addWidget(message, row + 1 + right, 0, 1, 4)   # under the pair, full width
             self.fields[key] = _Field(key, label, editor, message)
-            row += 2
+            if right:
+                row += 3
         grid.setColumnStretch(1, 1)
+        grid.setColumnStretch(3, 1)
 
         self.apply_button = QPushButton("Apply all changed")
         self.apply_button.setToolTip("Send every field whose value differs from the engine's")
@@ -143,7 +147,6 @@ class TuningPanel(QGroupBox):
         ref.addWidget(self.setpoint_label, 0, 0)
         ref.addLayout(sp, 0, 1)
         ref.addWidget(self.setpoint_message, 1, 0, 1, 2)
-        ref.addWidget(self.profile_button, 2, 0, 1, 2)
         ref.setColumnStretch(1, 1)
 
         lay = QVBoxLayout(self)
@@ -152,7 +155,10 @@ class TuningPanel(QGroupBox):
         lay.addWidget(self.apply_button)
         sep = QLabel("Reference")
         sep.setProperty("role", "muted")
-        lay.addWidget(sep)
+        head = QHBoxLayout()
+        head.addWidget(sep, 1)
+        head.addWidget(self.profile_button)
+        lay.addLayout(head)
         lay.addLayout(ref)
         self.set_enabled_for("disconnected")
 

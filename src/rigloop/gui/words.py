@@ -21,6 +21,17 @@ STATE_WORDS: dict[str, tuple[str, str]] = {
     "tripped": ("TRIPPED \u2013 RIG STOPPED", "Stop latched. Read the cause, make the rig safe, then Reset."),
 }
 
+#: what the Help button shows (docs/gui.md has the whole tour)
+HELP_TEXT = (
+    "<p><b>STOP</b> (the red button) or <b>Esc</b>, wherever the focus is: a <b>software stop</b>. "
+    "The engine sends STOP to the device at once and the trip latches until you press Reset trip.</p>"
+    "<p><b>This is not an emergency-stop device.</b> It relies on this computer, the link and the "
+    "device's firmware. The rig needs its own hardwired emergency stop, within reach, and guards "
+    "on everything that spins (safety.md).</p>"
+    "<p><b>Ramp down</b>: a controlled stop at the actuator's slew rate. Closing the window (or "
+    "<b>Ctrl+Q</b>, or SIGTERM) ramps a moving rig down first, then ends the session.</p>"
+    "<p>Tuning: press Enter in a field to send it; a refused value shows what is allowed.</p>")
+
 #: trip cause -> plain sentence (safety.md lists the causes)
 CAUSE_WORDS: dict[str, str] = {
     "e-stop": "Operator e-stop",
@@ -86,13 +97,17 @@ def describe_trip(trip: dict | None, units: dict[str, str] | None = None) -> str
     cause = str(trip.get("cause") or "unknown")
     head = CAUSE_WORDS.get(cause, f"Trip ({cause})")
     message = str(trip.get("message") or "").strip().rstrip(".")
-    text = f"{head}: {message}." if message else f"{head}."
+    if message.lower().startswith(head.lower()):
+        # the engine's message already says it ("operator e-stop (gui button)"): once is enough
+        text = f"{message[0].upper()}{message[1:]}."
+    else:
+        text = f"{head}: {message}." if message else f"{head}."
     channel = trip.get("channel")
     unit = f" {units[channel]}" if channel and units.get(channel) else ""
     figures = []
-    if trip.get("value") is not None:
+    if trip.get("value") is not None and fmt_num(trip["value"]) != "-":
         figures.append(f"value {fmt_num(trip['value'])}{unit}")
-    if trip.get("limit") is not None:
+    if trip.get("limit") is not None and fmt_num(trip["limit"]) != "-":
         figures.append(f"limit {fmt_num(trip['limit'])}{unit}")
     if trip.get("t") is not None:
         figures.append(f"at t = {fmt_num(trip['t'], 5)} s")
@@ -102,6 +117,14 @@ def describe_trip(trip: dict | None, units: dict[str, str] | None = None) -> str
         first = figures[0]
         text += " " + first[0].upper() + first[1:] + "".join(", " + f for f in figures[1:]) + "."
     return text
+
+
+def describe_completed_run(runs: int, duration_s: float | None, session_dir: str | None) -> str:
+    """The banner's words after a run reached its duration and the rig went back to idle."""
+    which = "The run" if runs <= 1 else f"Run {runs}"
+    length = f" ({fmt_num(duration_s)} s)" if duration_s else ""
+    where = f" Recorded in {session_dir}." if session_dir else ""
+    return f"{which} completed{length}; output safe.{where} Arm to run it again."
 
 
 def status_bit_words(bits: int | None) -> list[tuple[str, bool]]:

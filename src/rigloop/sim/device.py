@@ -370,6 +370,7 @@ class SimDevice(HostBinding):
         self.armed = True
         self._pending = None            # output stays safe until the first COMMAND after ARM
         self._last_cmd_us = now_us
+        self.faults.note_arm(now_us)    # fault times count from the first ARM
         self._observe(now_us, msg, "accepted")
         return []
 

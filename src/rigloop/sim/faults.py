@@ -1,8 +1,10 @@
 """Fault injection for the simulated device.
 
 A fault is written ``KIND[:key=value[,key=value...]]`` (one ``--fault`` option, or one string in
-the config's ``device.sim.faults`` list). Times (``at``) are device seconds since the device
-started. Random faults draw from their own generator seeded from ``--seed`` and the fault's
+the config's ``device.sim.faults`` list). Times (``at``) count from the **first ARM** the device
+accepts, in device seconds: "a broken sensor 5 s into the run" means the same whether the host
+connected at once or a minute after the simulated device started. Until that ARM, only faults
+at ``at=0`` act (the default of ``drop`` and ``corrupt``: a bad cable is bad from the start). Random faults draw from their own generator seeded from ``--seed`` and the fault's
 position in the list, so a run is repeatable and adding a fault does not change the draws of
 another.
 
@@ -92,7 +94,7 @@ class _KeyType:
 
 _KEY_TYPES: dict[str, _KeyType] = {
     "p": _KeyType(_probability, "a probability between 0 and 1, e.g. p=0.05"),
-    "at": _KeyType(_seconds, "device seconds >= 0, e.g. at=2.5"),
+    "at": _KeyType(_seconds, "seconds >= 0 after the first ARM, e.g. at=2.5"),
     "channel": _KeyType(_channel, "a channel name, e.g. channel=speed_rpm"),
     "value": _KeyType(_finite, "a finite number in the channel's units, e.g. value=5000"),
     "samples": _KeyType(_count, "a whole number >= 1, e.g. samples=3"),
@@ -221,6 +223,7 @@ class FaultInjector:
         self._spike_left: dict[int, int] = {i: s.samples for i, s in enumerate(self.specs)
                                             if s.kind == "spike"}
         self._load_done: set[int] = set()
+        self.origin_us: int | None = None      # device time of the first ARM: fault time zero
         self.last_corrupted = False
         self.counters: dict[str, int] = {"dropped": 0, "corrupted": 0, "silenced": 0,
                                          "deaf_ignored": 0, "stop_ignored": 0, "frozen": 0,
@@ -231,15 +234,26 @@ class FaultInjector:
     def __bool__(self) -> bool:
         return bool(self.specs)
 
+    def note_arm(self, now_us: int) -> None:
+        """The device accepted ARM: the first one starts the faults' clock."""
+        if self.origin_us is None:
+            self.origin_us = int(now_us)
+
+    def _due(self, spec: FaultSpec, now_us: int) -> bool:
+        """Has the fault's time come? ``at`` counts from the first ARM; at=0 acts from start-up."""
+        if spec.at_us <= 0:
+            return True
+        return self.origin_us is not None and now_us - self.origin_us >= spec.at_us
+
     @property
     def ignore_stop(self) -> bool:
         return bool(self._by_kind["ignore-stop"])
 
     def is_deaf(self, now_us: int) -> bool:
-        return any(now_us >= s.at_us for _, s in self._by_kind["deaf"])
+        return any(self._due(s, now_us) for _, s in self._by_kind["deaf"])
 
     def is_silent(self, now_us: int) -> bool:
-        return any(now_us >= s.at_us for _, s in self._by_kind["silent"])
+        return any(self._due(s, now_us) for _, s in self._by_kind["silent"])
 
     def outgoing(self, frame: bytes, now_us: int) -> bytes | None:
         """The frame as it leaves the device: unchanged, corrupted, or ``None`` when lost.
@@ -251,12 +265,12 @@ class FaultInjector:
             self.counters["silenced"] += 1
             return None
         for i, spec in self._by_kind["drop"]:
-            if now_us >= spec.at_us and self._rng[i].random() < spec.p:
+            if self._due(spec, now_us) and self._rng[i].random() < spec.p:
                 self.counters["dropped"] += 1
                 return None
         for i, spec in self._by_kind["corrupt"]:
             rng = self._rng[i]
-            if now_us >= spec.at_us and frame and rng.random() < spec.p:
+            if self._due(spec, now_us) and frame and rng.random() < spec.p:
                 # One flipped byte: a CRC-16 detects every error burst of up to 16 bits, so the
                 # receiver always rejects this frame (and never takes it for another message).
                 data = bytearray(frame)
@@ -276,7 +290,7 @@ class FaultInjector:
         """Load torques whose time has come and that were not applied yet, in spec order."""
         due = []
         for i, spec in self._by_kind["load"]:
-            if i not in self._load_done and now_us >= spec.at_us:
+            if i not in self._load_done and self._due(spec, now_us):
                 self._load_done.add(i)
                 self.counters["load_steps"] += 1
                 due.append(spec.torque)
@@ -285,7 +299,7 @@ class FaultInjector:
     def shape_channels(self, values: np.ndarray, now_us: int) -> np.ndarray:
         """Apply freeze / spike / NaN faults in place to ``values`` (sent-channel order)."""
         for i, spec in enumerate(self.specs):
-            if spec.channel is None or now_us < spec.at_us:
+            if spec.channel is None or not self._due(spec, now_us):
                 continue
             k = self._index[spec.channel]
             if spec.kind == "freeze":

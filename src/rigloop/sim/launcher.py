@@ -2,7 +2,7 @@
 
 The child is ``python -m rigloop sim --udp 127.0.0.1:0 ...`` with the config's
 ``device.sim.*`` settings, the configured channels (with their raw scaling) and rate, and
-``--exit-with-parent``, so it never outlives an engine that crashed. It announces its address
+``--quit-with-parent``, so it never outlives an engine that crashed. It announces its address
 with one ``rigloop-sim listening udp://HOST:PORT`` line on stdout; its stderr goes to a
 temporary file that is quoted when it fails to start.
 """
@@ -38,7 +38,7 @@ def sim_arguments(cfg: Any, *, rx_log: str | os.PathLike | None = None,
     sim = cfg.device.sim
     args = ["--udp", "127.0.0.1:0", "--plant", str(sim.plant), "--clock", str(sim.clock),
             "--rate", repr(float(cfg.device.rate_hz)), "--noise", repr(float(sim.noise)),
-            "--seed", str(int(sim.seed)), "--exit-with-parent"]
+            "--seed", str(int(sim.seed)), "--quit-with-parent"]
     limits = getattr(cfg, "limits", None)
     if sim.clock == "lockstep" and limits is not None:
         # Wait for the host's answer up to a third of its stale-data limit, capped at 20 ms and

@@ -13,7 +13,7 @@ slew limit stay active:
 
 Each hold lasts **until the output has settled** (:mod:`.driver`), at least ``hold_min_s`` and
 at most ``hold_max_s``, and the whole profile stays within ``budget_s``: as many steps as the
-budget allows. Given ``--settle`` or ``--hold``, those holds have that fixed length instead.
+budget allows. Given ``--initial-hold`` or ``--hold``, those holds have that fixed length instead.
 :class:`BumpPlan` is the checked description; :class:`.driver.BumpDriver` plays it.
 """
 
@@ -141,16 +141,16 @@ def plan_bump(u_min: float, u_max: float, safe: float, slew_per_s: float | None,
               unit: str = "", order: int = 1) -> BumpPlan:
     """Check the wanted bump test against the actuator range and the run limits.
 
-    Raises :class:`PlanError` naming the option (``--at``, ``--step``, ``--settle``, ``--hold``,
+    Raises :class:`PlanError` naming the option (``--operating-level``, ``--step``, ``--initial-hold``, ``--hold``,
     ``--ramp``, ``--steps``, ``--budget``), the value and what is allowed. ``u0 ± du`` must stay
     inside [u_min, u_max] since the test steps both ways from u0. The ramp is never faster than
     the slew limit. ``settle_s``/``hold_s`` given: fixed holds; None: hold until settled.
     """
     span = u_max - u_min
     u_text = f" {unit}" if unit else ""
-    u0 = default_operating_point(u_min, u_max, safe, order) if at is None else _finite("--at", at)
+    u0 = default_operating_point(u_min, u_max, safe, order) if at is None else _finite("--operating-level", at)
     if not u_min <= u0 <= u_max:
-        raise PlanError("--at", f"--at {u0:g}: the operating level must lie in the actuator range "
+        raise PlanError("--operating-level", f"--operating-level {u0:g}: the operating level must lie in the actuator range "
                                 f"[{u_min:g}, {u_max:g}]{u_text}")
     du = DEFAULT_STEP_FRACTION * span if step is None else _finite("--step", step)
     if du == 0:
@@ -160,13 +160,13 @@ def plan_bump(u_min: float, u_max: float, safe: float, slew_per_s: float | None,
     if abs(du) > room:
         given = f"--step {du:g}" if step is not None else f"the default step {du:g}{u_text} (--step)"
         raise PlanError("--step", f"{given}: u0 ± du = {u0:g} ± {abs(du):g}{u_text} leaves the "
-                                  f"actuator range [{u_min:g}, {u_max:g}]{u_text}; at --at {u0:g} "
+                                  f"actuator range [{u_min:g}, {u_max:g}]{u_text}; at --operating-level {u0:g} "
                                   f"the step may be at most {room:g}{u_text} "
                                   f"(allowed: 0 < |--step| <= {room:g})")
     ts = 1.0 / rate_hz
     slew_time = abs(du) / slew_per_s if slew_per_s else 0.0
     shortest = max(MIN_HOLD_SAMPLES * ts, 4.0 * slew_time)
-    for option, value in (("--settle", settle_s), ("--hold", hold_s)):
+    for option, value in (("--initial-hold", settle_s), ("--hold", hold_s)):
         if value is not None and _finite(option, value) < shortest:
             raise PlanError(option, f"{option} {value:g}: too short to measure a level; allowed: "
                                     f">= {shortest:.3g} s ({MIN_HOLD_SAMPLES} samples and 4x the "
@@ -204,7 +204,7 @@ def plan_bump(u_min: float, u_max: float, safe: float, slew_per_s: float | None,
     if plan.fixed and plan.duration_s >= limit:
         raise PlanError("--steps" if steps is not None else "--hold",
                         f"the bump test would last {plan.duration_s:.3g} s, not below "
-                        f"limits.max_duration_s = {limit:g} s; use fewer --steps, shorter --settle "
+                        f"limits.max_duration_s = {limit:g} s; use fewer --steps, shorter --initial-hold "
                         "and --hold, or raise the limit")
     return plan
 

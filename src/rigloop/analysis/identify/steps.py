@@ -258,7 +258,7 @@ def analyse_bump(t: np.ndarray, y: np.ndarray, u: np.ndarray, *, order: int, pla
                               f"{schedule.t_end:.3g} s")
     if len(schedule.starts) < 2:
         raise EstimationError(f"the profile made {len(schedule.starts)} step(s) within its budget; "
-                              "two are needed (out and back): raise --budget or shorten --settle")
+                              "two are needed (out and back): raise --budget or shorten --initial-hold")
     tol = 1e-3 * abs(plan.du)
     starts = []
     for t_req in schedule.starts:
@@ -277,7 +277,7 @@ def analyse_bump(t: np.ndarray, y: np.ndarray, u: np.ndarray, *, order: int, pla
         start = _index_at(t, t_end - STEADY_FRACTION * (h1 - h0))
         if end - start < MIN_HOLD_SAMPLES // 2:
             raise EstimationError(f"a hold has only {end - start} steady samples; lengthen "
-                                  "--settle and --hold")
+                                  "--initial-hold and --hold")
         stretches.append(slice(start, end))
     noise = noise_floor([y[s] for s in stretches])
     sigma = noise.sigma

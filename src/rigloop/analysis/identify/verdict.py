@@ -81,7 +81,7 @@ def judge(est: BumpEstimates, plan: BumpPlan) -> tuple[list[Refusal], list[str]]
     if quiet:
         refusals.append(Refusal(
             f"the output hardly moved on step(s) {', '.join(quiet)}",
-            "use a larger --step, or choose --at away from a dead zone or a stop; check that the "
+            "use a larger --step, or choose --operating-level away from a dead zone or a stop; check that the "
             "actuator drives this output"))
     good = est.responded
     alphas = [s.alpha for s in good if s.alpha is not None]
@@ -105,7 +105,7 @@ def judge(est: BumpEstimates, plan: BumpPlan) -> tuple[list[Refusal], list[str]]
                 f"the steps disagree on alpha beyond their spread: {est.alpha:.3g} ± "
                 f"{est.alpha_spread:.3g} ({100 * rel:.0f} %, the noise explains ± {typical:.2g})",
                 "the rig is not the same from step to step (a load that changes, backlash, a "
-                "dead zone within the steps): use a smaller --step around an --at away from "
+                "dead zone within the steps): use a smaller --step around an --operating-level away from "
                 "the dead zone, or longer --hold"))
     bounded = [f"{k + 1} ({s.fit_at_bound})" for k, s in enumerate(est.steps)
                if s.fit_at_bound and not s.outlier]
@@ -122,7 +122,7 @@ def judge(est: BumpEstimates, plan: BumpPlan) -> tuple[list[Refusal], list[str]]
             f"the noise floor on step(s) {', '.join(loose)}",
             "the rig is not a first-order lag with dead time around this level (backlash, a load "
             "that changes with position, a second lag): try a smaller --step, a level away from "
-            "rest (--at) or shorter holds"))
+            "rest (--operating-level) or shorter holds"))
     heavy = [f"{k + 1}" for k, s in enumerate(good)
              if s.alpha_source == "slope" and s.alpha_slope is not None
              and abs(s.alpha_slope - s.alpha_uncorrected) > abs(s.alpha_uncorrected)]
@@ -161,7 +161,7 @@ def judge(est: BumpEstimates, plan: BumpPlan) -> tuple[list[Refusal], list[str]]
             refusals.append(Refusal(
                 f"the steps reach {lowest:.4g}, inside the dead zone (the output starts to move at "
                 f"about {dz.u_start:.4g})",
-                "choose --at and --step so that u0 - |du| stays above the dead zone"))
+                "choose --operating-level and --step so that u0 - |du| stays above the dead zone"))
         notes.append(f"the output starts to move at about {dz.u_start:.3g} on the ramp (a dead "
                      "zone): keep the operating range above it — actuator.min at about that "
                      "value if the rig may rest there, or an offset in the drive")
