@@ -233,12 +233,12 @@ def test_garbage_on_the_uart_is_rejected_and_the_loop_holds(board, tmp_path):
 
 def test_open_loop_bump_test_recovers_the_on_chip_fan(board, tmp_path, capsys):
     """The bring-up guide's open-loop check (docs/bring-up.md, section 5) against the emulated
-    board: `rigloop identify` steps the duty 30 -> 40 % and fits a first-order model."""
+    board: `rigloop identify` steps the duty around 30 % and fits a first-order model."""
     import json
 
     from rigloop.cli import main
 
-    code = main(["identify", str(pil_config(tmp_path, board.pty, "bump")), "--at", "30", "--step", "10",
+    code = main(["identify", str(pil_config(tmp_path, board.pty, "bump")), "--operating-level", "30", "--step", "10",
                  "--json", "--quiet"])
     assert code == 0
     est = json.loads(capsys.readouterr().out)["estimates"]
