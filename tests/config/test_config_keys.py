@@ -51,6 +51,7 @@ CASES: dict[str, tuple[str, object, object, dict]] = {
     "device.sim.rig": ("device.sim.rig", {"dead_zone": 5.0}, {"gear_ratio": 10.0}, {}),
     "device.sim.rig.dead_zone": ("device.sim.rig.dead_zone", 8.0, 100.0, {}),
     "device.sim.rig.input_delay_s": ("device.sim.rig.input_delay_s", 0.02, 2.0, {}),
+    "device.sim.rig.drive_sign": ("device.sim.rig.drive_sign", -1, 0, {}),
     "device.sim.rig.gear_ratio": ("device.sim.rig.gear_ratio", 20.0, 0, MOTOR_SIM),
     "device.sim.rig.backlash_rad": ("device.sim.rig.backlash_rad", 0.01, -0.01, MOTOR_SIM),
     "device.sim.rig.tach_pulses_per_rev": ("device.sim.rig.tach_pulses_per_rev", 2, 1.5, {}),

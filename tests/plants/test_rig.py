@@ -235,3 +235,21 @@ def test_options_a_plant_cannot_have_name_their_key():
     assert caught.value.key == "dead_zone"
     with pytest.raises(ValueError, match="unknown device.sim.rig key 'deadzone'"):
         build_rig("fan", None, {"deadzone": 3.0})
+
+
+def test_swapped_leads_flip_alpha_and_gain_and_the_motion():
+    # drive_sign -1: the same rig with the command's sign reversed (finite differences of the
+    # steady state and of the simulated initial slope change sign, the magnitudes stay).
+    plain = build_rig("motor", None, {"dead_zone": 1.0})
+    swapped = build_rig("motor", None, {"dead_zone": 1.0, "drive_sign": -1})
+    for rig in (plain, swapped):
+        rig.reset(0.0)
+    assert swapped.static_gain("speed_rad_s", 6.0) == pytest.approx(-plain.static_gain("speed_rad_s", 6.0))
+    assert swapped.true_alpha("speed_rad_s", 1, 6.0) == pytest.approx(-plain.true_alpha("speed_rad_s", 1, 6.0))
+    for rig in (plain, swapped):
+        for _ in range(200):
+            rig.advance(6.0, 0.002)
+    i = plain.channel_index("speed_rad_s")
+    assert swapped.read()[i] == pytest.approx(-plain.read()[i], rel=1e-9)
+    assert swapped.command_for_drive(swapped.drive(-4.0)) == pytest.approx(-4.0)
+    assert swapped.steady_input("speed_rad_s", 50.0) < 0.0

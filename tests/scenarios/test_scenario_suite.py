@@ -47,7 +47,19 @@ def test_readme_documents_every_scenario():
 def test_every_scenario_passes_rigloop_check(path, capsys):
     from rigloop.cli import main
 
-    assert main(["check", str(path)]) == 0, capsys.readouterr().out
+    assert main(["check", str(path)]) == 0
+    printed = capsys.readouterr().out
+    assert "simulated imperfections: " in printed, printed
+
+
+def test_check_names_the_imperfections_and_the_known_delay(capsys):
+    from rigloop.cli import main
+
+    path = SCENARIO_DIR / "blower_dead_zone_delay.yaml"
+    assert main(["check", str(path), "--set", "control.input_delay_s=0.03"]) == 0
+    printed = capsys.readouterr().out
+    assert "simulated imperfections: dead_zone 12.0, input_delay_s 0.03" in printed
+    assert "known input delay 0.03 s" in printed
 
 
 @pytest.mark.parametrize("path", PATHS, ids=IDS)

@@ -37,18 +37,34 @@ def _value(item: Derived) -> str:
     return f"{text} {item.unit}".strip() if value is not None else text
 
 
+def _rig_text(rig: dict) -> str:
+    """``device.sim.rig`` in one line, e.g. ``dead_zone 12, input_delay_s 0.03, load.walk_nm 1e-4``."""
+    parts = []
+    for key, value in rig.items():
+        if isinstance(value, dict):
+            parts += [f"{key}.{k} {len(v) if isinstance(v, list) else v}" + (" step(s)" if isinstance(v, list) else "")
+                      for k, v in value.items()]
+        else:
+            parts.append(f"{key} {value}")
+    return ", ".join(parts)
+
+
 def _summary(cfg: Config) -> list[str]:
     dev, act, ctl = cfg.device, cfg.actuator, cfg.control
     where = dev.url
     if dev.link == "sim":
         where += f" (simulated {dev.sim.plant}, {dev.sim.clock} clock, noise x{dev.sim.noise:g})"
     unit = f" {act.unit}" if act.unit else ""
-    return [
-        f"rig {cfg.rig}: device {where}",
+    lines = [f"rig {cfg.rig}: device {where}"]
+    if dev.link == "sim" and getattr(dev.sim, "rig", None):
+        lines.append("simulated imperfections: " + _rig_text(dev.sim.rig))
+    return lines + [
         f"{len(cfg.channels)} channel(s): {', '.join(c.name for c in cfg.channels)}; actuator "
         f"{act.name} {act.min:g}..{act.max:g}{unit}, safe {act.safe:g}{unit}",
         f"law {ctl.law} (order {ctl.order}) on {ctl.output}: alpha {ctl.alpha:g}, kp {ctl.kp:g}, "
-        f"ki {ctl.ki:g}, kd {ctl.kd:g}; estimator {ctl.estimator.kind}",
+        f"ki {ctl.ki:g}, kd {ctl.kd:g}; estimator {ctl.estimator.kind}"
+        + (f"; known input delay {ctl.input_delay_s:g} s"
+           if getattr(ctl, "input_delay_s", 0.0) else ""),
         f"reference {cfg.reference.get('kind')}; run "
         + (f"{cfg.duration_s:g} s" if cfg.duration_s is not None else "until stopped")
         + f" (trip after {cfg.limits.max_duration_s:g} s); sessions in {cfg.recording.dir}",

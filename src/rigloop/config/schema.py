@@ -436,6 +436,8 @@ SCHEMA: tuple[Key, ...] = (
         "actuator dead zone half-width around zero drive [actuator unit]; full scale kept"),
     Key("device.sim.rig.input_delay_s", Number(ge=0, le=1), 0.0,
         "transport delay between the applied actuator value and the plant [s]"),
+    Key("device.sim.rig.drive_sign", Choice((1, -1)), 1,
+        "-1: the motor leads are swapped, a positive command turns it backwards"),
     Key("device.sim.rig.gear_ratio", _POS, 1.0,
         "motor: gearbox ratio, motor turns per output turn (angle and speed at the output)"),
     Key("device.sim.rig.backlash_rad", _NONNEG, 0.0,

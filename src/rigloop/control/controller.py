@@ -9,6 +9,11 @@ Per sample k the caller passes the measurement ``y_k``, the actuator value the d
 from tick k on (``u_applied``, the truth from the device, never the host's intent) and the
 reference ``r, r', r''`` at the sample's time. The estimators take ``(y_k, u_applied_k)``; the
 law gets ``e = y − r``, ``e' = ŷ' − r'`` (the algebraic derivative of y, the analytic r') and F̂.
+Two refinements sit on that path: the output passes through the quantization band first
+(:mod:`rigloop.control.quantization`: a still, quantized output does not dither the law), and
+with a known input delay the estimate pairs y with the delayed input and the intelligent laws
+act on the output predicted over the delay (:mod:`rigloop.control.delay`). ``e`` as published
+stays the measured ``y − r``.
 
 Warm-up: until both the F estimator and the derivative have a full window, ``ready`` is False
 and :meth:`step` returns ``u_hold`` (the integral does not run).

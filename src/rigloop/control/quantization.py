@@ -33,9 +33,10 @@ import math
 MIN_STEPS = 8
 #: How close to a whole number of counts a step must be (in counts).
 TOLERANCE = 1e-3
-#: Steps below this fraction of the value are rounding of the arithmetic, not a sensor's count
-#: (a settled exact signal wanders by a few units in the last place).
-FLOAT_NOISE = 1e-9
+#: Steps below this fraction of the value are rounding, not a sensor's count: the wire carries
+#: float32 values (a unit in the last place is 6e-8 of the value), and a settled exact signal
+#: wanders by a few of them. Real counts are far coarser (1 rpm at 3000 rpm is 3e-4).
+FLOAT_NOISE = 1e-6
 
 
 class QuantizationBand:

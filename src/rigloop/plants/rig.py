@@ -6,7 +6,8 @@ are the same for a fan and a motor, so they are written once and wrapped around 
 1. **Actuator**: a dead zone of half-width ``dead_zone`` around zero drive (a PWM stage or
    driver that does not move the motor for small commands). Outside it the drive is rescaled so
    that full scale stays full scale: ``v = sign(u) (|u| - d) U / (U - d)`` with ``U`` the larger
-   of |u_min|, |u_max|; inside it ``v = 0``. Then a transport delay: the plant receives
+   of |u_min|, |u_max|; inside it ``v = 0``; ``drive_sign`` -1 swaps the motor leads (a positive
+   command turns it backwards: alpha and the gain change sign). Then a transport delay: the plant receives
    ``v(t - input_delay_s)`` (a drive's filtering and dead time, a duct's air travel).
 2. **Plant**: the wrapped model, unchanged (friction: its ``viscous_*`` and ``dry_friction_nm``).
 3. **Load**: :mod:`rigloop.plants.load` (drift, random walk, steps, angle ripple) on top of
@@ -46,6 +47,7 @@ class RigSpec:
 
     dead_zone: float = 0.0
     input_delay_s: float = 0.0
+    drive_sign: int = 1
     gear_ratio: float = 1.0
     backlash_rad: float = 0.0
     tach_pulses_per_rev: int = 0
@@ -61,6 +63,8 @@ class RigSpec:
                                  f"{u_span:g} {plant.actuator_unit}")
         if not (0.0 <= self.input_delay_s <= 1.0):
             raise RigOptionError("input_delay_s", self.input_delay_s, "give 0..1 s")
+        if self.drive_sign not in (1, -1):
+            raise RigOptionError("drive_sign", self.drive_sign, "give 1, or -1 for swapped leads")
         if not self.gear_ratio > 0.0:
             raise RigOptionError("gear_ratio", self.gear_ratio, "give a number > 0")
         if not self.backlash_rad >= 0.0:
@@ -135,25 +139,26 @@ class Rig:
 
     # --- actuator -----------------------------------------------------------------------------
     def drive(self, u: float) -> float:
-        """The drive the plant gets for command ``u`` (dead zone, rescaled; no delay)."""
-        d = self.spec.dead_zone
+        """The drive the plant gets for command ``u`` (dead zone, rescaled, sign; no delay)."""
+        d, sign = self.spec.dead_zone, self.spec.drive_sign
         if d == 0.0:
-            return float(u)
+            return float(u) * sign
         excess = abs(u) - d
-        return math.copysign(excess * self._dz_scale, u) if excess > 0.0 else 0.0
+        return math.copysign(excess * self._dz_scale, u) * sign if excess > 0.0 else 0.0
 
     def drive_slope(self, u: float) -> float:
-        """d drive / du at ``u``: 0 inside the dead zone, its rescaling outside."""
-        d = self.spec.dead_zone
+        """d drive / du at ``u``: 0 inside the dead zone, its rescaling (and sign) outside."""
+        d, sign = self.spec.dead_zone, self.spec.drive_sign
         if d == 0.0:
-            return 1.0
-        return self._dz_scale if abs(u) > d else 0.0
+            return float(sign)
+        return self._dz_scale * sign if abs(u) > d else 0.0
 
     def command_for_drive(self, v: float) -> float:
         """The command giving drive ``v`` (the edge of the dead zone for v = 0)."""
         d = self.spec.dead_zone
+        v = float(v) * self.spec.drive_sign
         if d == 0.0 or v == 0.0:
-            return float(v)
+            return v
         return math.copysign(abs(v) / self._dz_scale + d, v)
 
     def reset(self, u0: float | None = None) -> None:

@@ -18,7 +18,7 @@ from rigloop.plants.load import LoadSpec, parse_steps
 from rigloop.plants.rig import Rig, RigSpec
 from rigloop.plants.sensors import SensorModel
 
-RIG_KEYS = ("dead_zone", "input_delay_s", "gear_ratio", "backlash_rad", "tach_pulses_per_rev",
+RIG_KEYS = ("dead_zone", "input_delay_s", "drive_sign", "gear_ratio", "backlash_rad", "tach_pulses_per_rev",
             "tach_timeout_s", "load")
 LOAD_KEYS = ("drift_nm", "drift_period_s", "walk_nm", "steps", "ripple_nm", "ripple_per_rev")
 SENSOR_KEYS = ("noise_std", "relative_noise", "quantum")
@@ -39,8 +39,9 @@ def rig_spec(rig: Mapping[str, Any] | None, seed: int = 0) -> RigSpec:
     steps = parse_steps(load.pop("steps", None))
     load_spec = LoadSpec(**{k: float(v) for k, v in load.items()}, steps=steps, seed=int(seed))
     values: dict[str, Any] = {k: float(v) for k, v in rig.items()}
-    if "tach_pulses_per_rev" in values:
-        values["tach_pulses_per_rev"] = int(values["tach_pulses_per_rev"])
+    for key in ("tach_pulses_per_rev", "drive_sign"):
+        if key in values:
+            values[key] = int(values[key])
     return RigSpec(**values, load=load_spec)
 
 
