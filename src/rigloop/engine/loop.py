@@ -31,6 +31,7 @@ from rigloop.engine.recorder import SessionRecorder, describe_os_error, utc_now_
 from rigloop.engine.session import RunResult, SessionLifecycle  # noqa: F401 - RunResult is public here
 from rigloop.engine.states import State, next_state
 from rigloop.engine.tunables import control_params_from_config  # noqa: F401 - imported from here by bench/
+from rigloop.link.base import LinkError
 from rigloop.protocol.messages import Arm, Command, Fault, Hello, Sample, Status, Stop, StopReason
 
 log = logging.getLogger("rigloop.engine")
@@ -296,7 +297,10 @@ class Engine(SessionLifecycle, FrontEndRequests):
                     u_cmd = self.safe
                     self.shaper.reset(self.safe)
                 self.cmd_seq = (self.cmd_seq + 1) & 0xFFFFFFFF
-                self.link.send(Command(self.cmd_seq, s.seq, float(u_cmd)))
+                try:
+                    self.link.send(Command(self.cmd_seq, s.seq, float(u_cmd)))
+                except LinkError as exc:  # a link that cannot take a COMMAND is lost: trip, no traceback
+                    self._trip(Trip("link-lost", f"could not send a COMMAND: {exc}", t=t))
                 t_sent = time.perf_counter()
                 self.supervisor.note_command(
                     u_cmd, self.cmd_seq if self.state in (State.RUNNING, State.STOPPING) else None)
