@@ -171,7 +171,11 @@ def test_a_foreign_process_cannot_drive_the_c_stub(tmp_path, stub_binary):
     s = Session(next((tmp_path / "sessions").iterdir()))
     assert (s.samples.u <= s.samples.u_cmd.max() + 1e-4).all()      # applied never exceeds the host's command
     running = s.samples[s.samples.state == "running"]
-    assert np.allclose(running.u.to_numpy()[1:], running.u_cmd.to_numpy()[:-1], atol=1e-4)
+    u, u_cmd = running.u.to_numpy(), running.u_cmd.to_numpy()
+    # every applied value is one of the host's last few commands (one period of latency normally,
+    # more when a busy machine delays a COMMAND), never a value of the foreign sender's
+    lags = np.array([np.abs(u[3:] - u_cmd[3 - k:len(u_cmd) - k]) for k in (1, 2, 3)])
+    assert (lags.min(axis=0) <= 1e-4).all()
 
 
 def _key_files(tmp_path):
