@@ -97,6 +97,20 @@ def test_frozen_reading_while_the_command_moves_trips_after_frozen_s():
     assert k * TS >= 0.5 and us[k] - us[0] >= 25.0        # far: at least a quarter of the range
 
 
+def test_a_long_rest_then_a_command_gets_the_whole_frozen_time_to_answer():
+    """An arm resting in its gear play reads the same count for seconds; then the law steps the
+    voltage far. The reading answers 0.2 s later, inside frozen_s (0.5 s): no trip — the time
+    counts from when the loop began to ask, not from when the reading began to repeat. A reading
+    that never answers trips frozen_s after the step."""
+    rest, n = 2000, 1000                               # 4 s at rest, then 2 s of asking
+    us = [0.0] * rest + [60.0] * n                     # far: 60 % of the range at once
+    answering = [0.0] * (rest + 100) + [0.0 + 5.0 * k for k in range(n - 100)]
+    assert _first_trip(_fan_monitor(), answering, us, [0.0] * (rest + n)) == (None, None)
+    k, trip = _first_trip(_fan_monitor(), [0.0] * (rest + n), us, [0.0] * (rest + n))
+    assert trip.cause == "no-response" and "repeated" in trip.message
+    assert (k - rest) * TS == pytest.approx(0.5, abs=2 * TS)
+
+
 def test_no_answer_at_the_upper_limit_trips_after_the_response_time():
     """A stalled rotor: duty at 100 %, the reference far above, the reading noise around 0."""
     mon = _fan_monitor()

@@ -15,11 +15,13 @@ response time. Three checks follow from it (safety.md, "Feedback plausibility"):
   actuator off) a still output is a rig at rest; only an output moving *against* the reference
   trips there.
 * **bit-identical reading while the loop asks for change** — the reading repeats exactly for
-  ``frozen_s`` while the command moved far (its expected answer is :data:`FAR_FACTOR` bands,
+  ``frozen_s`` *after* the loop began to ask for change, that is while the command has moved
+  far from its value when the reading began to repeat (its expected answer is :data:`FAR_FACTOR` bands,
   and at least :data:`FAR_MIN_FRACTION` of the actuator range), or reached a limit other than
   safe, or the error is far from zero (:data:`ERROR_FAR_FRACTION` of the output's span). A
   quantized sensor at rest reads exactly the same value forever: with a steady command that is
-  not a fault.
+  not a fault, and an output that rested for a long time gets the whole ``frozen_s`` to answer
+  a command that then moves.
 * the noise band itself comes from the samples before ARM (:class:`NoiseMeter`), so every
   threshold is set against the rig's own sensor, never against a built-in simulator.
 
@@ -188,6 +190,7 @@ class ResponseMonitor:
         self._last_y = None
         self._last_u = None
         self._same_since = None
+        self._asked_since = None
         self._u_ref = None
 
     # ------------------------------------------------------------------------------------------
@@ -227,14 +230,27 @@ class ResponseMonitor:
 
     def _frozen(self, t, y, u, r) -> Trip | None:
         if self._last_y is None or y != self._last_y:
-            self._same_since = None
+            self._same_since = self._asked_since = None
             return None
         if self._same_since is None:
             self._same_since = t - self.period_s
             self._u_ref = self._last_u
-        held = t - self._same_since
-        if held < self.frozen_s:
+        why = self._asking_for_change(y, u, r)
+        if why is None:
+            self._asked_since = None
             return None
+        if self._asked_since is None:          # the rig gets frozen_s from now to answer
+            self._asked_since = t - self.period_s
+        if t - self._asked_since < self.frozen_s:
+            return None
+        held = t - self._same_since
+        return Trip("no-response",
+                    f"{self.channel} repeated {_g(y)} {self.unit} exactly {why}: a frozen or "
+                    f"disconnected sensor (value: seconds repeated, limit: frozen time)",
+                    t=t, channel=self.channel, value=held, limit=self.frozen_s)
+
+    def _asking_for_change(self, y, u, r) -> str | None:
+        """Why the loop asks the repeated reading to change (words), or None."""
         du = u - self._u_ref
         side = self._limit_side(u)
         limit_value = self.u_max if side > 0 else self.u_min
@@ -248,10 +264,7 @@ class ResponseMonitor:
             why = f"while the error grew to {_g(err)} {self.unit}".rstrip()
         else:
             return None
-        return Trip("no-response",
-                    f"{self.channel} repeated {_g(y)} {self.unit} exactly {why}: a frozen or "
-                    f"disconnected sensor (value: seconds repeated, limit: frozen time)",
-                    t=t, channel=self.channel, value=held, limit=self.frozen_s)
+        return why
 
     def _at_limit(self, t, y, z, u, r) -> Trip | None:
         d = self._limit_side(u)
