@@ -79,6 +79,19 @@ def test_supervisor_frozen_channel_needs_a_moving_command(tmp_path):
     trips = [sup.check_sample(1.0 + k * 0.01, [0.0, 0.0, 1.0, 1.0], True) for k in range(10)]
     first = next(i for i, t in enumerate(trips) if t is not None)
     assert trips[first].cause == "frozen-sensor" and trips[first].channel == "current_a"
+    # a second of rest before the command moved does not count: frozen_s (5 sample periods)
+    # from the last sample before the command moved
+    assert first == 4
+
+
+def test_supervisor_frozen_channel_answering_within_frozen_s_after_a_long_rest(tmp_path):
+    sup = _sup(tmp_path, "limits.current_a.frozen_s=0.05")
+    for k in range(100):                             # a second at rest, the reading repeating
+        assert sup.check_sample(k * 0.01, [0.0, 0.0, 1.0, 1.0], True) is None
+    sup.note_command(60.0, 1)
+    readings = [0.0, 0.0, 0.0, 0.2, 0.5, 0.9]        # current_a answers after 3 samples (< 5)
+    assert all(sup.check_sample(1.0 + k * 0.01, [0.0, r, 1.0, 1.0], True) is None
+               for k, r in enumerate(readings))
 
 
 def test_supervisor_bursts_and_stale(tmp_path):

@@ -48,7 +48,7 @@ class ChannelGuard:
     """Limits of one channel, with the last samples its rate of change is estimated from."""
 
     __slots__ = ("name", "unit", "index", "min", "max", "rate_max", "frozen_s", "stop",
-                 "_last_v", "_last_t", "_same_since", "_u_ref", "_ring", "_n")
+                 "_last_v", "_last_t", "_same_since", "_far_since", "_u_ref", "_ring", "_n")
 
     def __init__(self, name, unit, index, lim):
         self.name = name
@@ -62,6 +62,7 @@ class ChannelGuard:
         self._last_v = None
         self._last_t = None
         self._same_since = None
+        self._far_since = None
         self._u_ref = None
         self._ring: deque[float] = deque(maxlen=RATE_WINDOW_INTERVALS + 1)
         self._n = 0
@@ -141,16 +142,22 @@ class Supervisor:
         return None
 
     def _frozen_channel(self, g: ChannelGuard, t: float, v: float, running: bool) -> Trip | None:
-        """A channel repeating its value exactly for frozen_s, but only while the command moved
-        far since it started repeating (a quantized reading at rest repeats forever)."""
+        """A channel repeating its value exactly for frozen_s after the command moved far from
+        where it was when the value began to repeat (a quantized reading at rest repeats forever,
+        and a channel at rest for long gets the whole frozen_s to answer a command that moves)."""
         if v != g._last_v:
-            g._same_since = None
+            g._same_since = g._far_since = None
             return None
         if g._same_since is None:
             g._same_since = g._last_t
             g._u_ref = self._u_now
         held = t - g._same_since
-        if running and held >= g.frozen_s and abs(self._u_now - g._u_ref) >= self._du_far:
+        if not (running and abs(self._u_now - g._u_ref) >= self._du_far):
+            g._far_since = None
+            return None
+        if g._far_since is None:
+            g._far_since = g._last_t
+        if t - g._far_since >= g.frozen_s:
             g._last_v, g._last_t = v, t
             return Trip("frozen-sensor",
                         f"{g.name} stuck at {_fmt(v)} {g.unit} for {_fmt(held)} s while the command moved "
