@@ -30,7 +30,7 @@ def _identify(sc):
     cfg, a = sc.config, sc.config.actuator
     truth = sc.truth()
     plan = plan_bump(a.min, a.max, a.safe, a.slew_per_s, rate_hz=cfg.device.rate_hz, at=truth.u,
-                     max_duration_s=cfg.limits.max_duration_s)
+                     max_duration_s=cfg.limits.max_duration_s, order=sc.order)
     rig, sensor = sc.build()
     limit = cfg.limits.channels.get(sc.output)
     result = identify_offline(rig, plan, ts=sc.period_s, output=sc.output, order=sc.order,

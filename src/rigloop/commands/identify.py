@@ -122,8 +122,11 @@ def run_bump_test(cfg, plan, *, tau_cl=None, out_dir=None, write=None, as_json=F
              else f"{a.name} at {plan.u0:g}{unit}")
     held = (f"each held {plan.hold_max_s:g} s" if plan.hold_min_s == plan.hold_max_s
             else "each held until settled")
-    print(f"bump test on {cfg.rig}: {start}, up to {plan.steps} steps of ±{abs(plan.du):g}{unit} "
-          f"around it, {held}, at most {plan.duration_s:.3g} s. The rig moves on its own: keep "
+    steps = (f"up to {plan.steps} steps of ±{abs(plan.du):g}{unit} around it" if plan.order == 1 else
+             f"up to {plan.steps // 4} excursion(s), up and down in turn: start at ±{abs(plan.du):g}{unit}, steps "
+             f"of ±{abs(plan.du) / 2:g}{unit} while moving, stop")
+    print(f"bump test on {cfg.rig}: {start}, {steps}, {held}, at most {plan.duration_s:.3g} s. "
+          "The rig moves on its own: keep "
           "the hardwired e-stop within reach (safety.md); Ctrl-C stops at once.", file=sys.stderr)
     engine = Engine(cfg, out_dir=out_dir, duration_s=plan.duration_s, autostart=True, front_end="cli",
                     open_loop=driver)
@@ -279,11 +282,18 @@ def render_text(cfg, plan, est, sugg, snippet, session, written, *, refusals=(),
     slew = (f"slew-limited at {plan.slew_per_s:g} {au}/s ({plan.slew_time_s:.3g} s per step)"
             if plan.slew_per_s else "no slew limit")
     holds = ", ".join(f"{s.hold_s:.3g}" for s in est.steps)
+    if m == 1:
+        what = f"{len(est.steps)} steps of ±{abs(plan.du):g} {au} around {plan.u0:g}"
+    else:
+        what = (f"{len(est.steps)} transitions around {plan.u0:g} (starts at ±{abs(plan.du):g} {au}, "
+                f"steps of ±{abs(plan.du) / 2:g} {au} while moving, stops; only the steps while "
+                "moving are estimated)")
     w(f"  profile   ramp {plan.safe:g} -> {plan.u0:g} {au} ({plan.ramp_s:.3g} s), "
-      f"{len(est.steps)} steps of ±{abs(plan.du):g} {au} around {plan.u0:g}, held {holds} s; {slew}\n")
+      f"{what}, held {holds} s; {slew}\n")
     w(f"  sample period {est.ts * 1000:.4g} ms\n\n")
-    w(f"Estimates per step{'':<26}" + "".join(f"{f'{k + 1} {s.direction}':>10}" for k, s in enumerate(est.steps))
-      + "   mean ± spread\n")
+    labels = [f"{k + 1} {s.direction if s.kind in ('step', 'moving') else s.kind}"
+              for k, s in enumerate(est.steps)]
+    w(f"Estimates per step{'':<26}" + "".join(f"{label:>10}" for label in labels) + "   mean ± spread\n")
 
     def row(label, attr, mean=None, spread=None, unit=""):
         vals = [getattr(s, attr) if s.responded else None for s in est.steps]

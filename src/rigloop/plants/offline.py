@@ -157,7 +157,9 @@ class OracleController:
         order 2:  u = (-F + r'' - kp e - kd e') / alpha         ->  e'' = -kd e' - kp e
 
     where e' uses the true output derivative. It has the same one-sample command delay as any
-    controller in the loop, so it shows what a perfect F estimate would achieve.
+    controller in the loop, so it shows what a perfect F estimate would achieve. Where u does
+    not reach the output (alpha = 0: in a gear's play), it uses the alpha with the teeth in
+    contact (``engaged_alpha``).
     """
 
     def __init__(self, plant: Any, output: str, *, kp: float, kd: float = 0.0, order: int = 1) -> None:
@@ -186,6 +188,13 @@ class OracleController:
         plant, m = self.plant, self.order
         alpha = plant.true_alpha(self.output, m, u_applied)
         f_true = plant.quasi_static_rate(self.output, m, u_applied) - alpha * u_applied
+        if alpha == 0.0 and hasattr(plant, "engaged_alpha"):
+            # in a gear's play (or a dead zone) u does not reach the output: drive as if the
+            # teeth were in contact, which takes the play up in the direction the law asks
+            alpha = plant.engaged_alpha(self.output, m, u_applied)
+        if alpha == 0.0:                      # inside a dead zone: u has no effect; hold it
+            self.u = u_applied
+            return self.u
         self.alpha = alpha
         self.f_hat = f_true
         self.e = y - r

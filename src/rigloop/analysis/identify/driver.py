@@ -13,23 +13,28 @@ the noise (m = 2: the same with the rate, the least-squares slope of each quarte
 first-order response the two quarters' means differ by 3 % of the change after about five time
 constants (``(e^(−E/2τ) − e^(−3E/4τ))·4τ/E`` at E = 5.2τ). A noisy output can pass that test
 early, so for m = 1 the hold must also have lasted :data:`HOLD_T63_MULTIPLE` times the time its
-moving mean took to reach 63 % of the change (τ + θ): a hold lasts about 5τ.
+moving mean took to reach 63 % of the change (τ + θ): a hold lasts about 5τ. For m = 2 a hold
+away from u0 (a start or a step while moving) has settled once it has lasted
+:data:`HOLD_T63_MULTIPLE` times the time the **rate** took to reach 63 % of its change: a load
+that changes with position (an arm's weight) keeps the rate drifting, so the quarters may never
+agree before the limits guard, while the fit (:mod:`.fitting`) models that drift.
 
 **Limits guard** (m = 2): a hold away from u0 also ends at once when the output, moving away
 from where the hold began, leaves the inner part of its channel limits (:data:`GUARD_FRACTION` of the range from
 each limit). An integrating output (a position) keeps moving while a step is held, so without
-this the test would run into the position limit and trip; the next step then turns it back.
+this the test would run into the position limit and trip. The profile then skips to the stop of
+that excursion (the input that holds the output) and goes the other way.
 
-**Budget**: at the operating level, the next excursion (out and back) starts only when the
-budget left holds two holds as long as the longest so far (plus 10 %); the step back is always
-taken, within what is left. Fixed holds (``--hold``) ignore the budget: the plan's duration was
+**Budget**: at the operating level, the next excursion (out and back: two holds, four for
+m = 2) starts only when the budget left holds that many holds as long as the longest so far
+(plus 10 %); the way back is always taken, within what is left. Fixed holds (``--hold``) ignore the budget: the plan's duration was
 checked against the run limit.
 """
 
 from __future__ import annotations
 
 import math
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
@@ -46,6 +51,9 @@ GUARD_FRACTION = 0.25
 #: ... and (m = 1) at least this many times the time the output took to reach 63 % of its change
 #: (five time constants: 99.3 % of a first-order response; common practice).
 HOLD_T63_MULTIPLE = 5.0
+#: The rate of an integrating output is taken over this fraction of the hold so far (at least 8
+#: samples) when timing its 63 % rise.
+RATE_WINDOW_FRACTION = 0.05
 #: Margin on the longest hold so far when deciding whether another excursion fits the budget.
 BUDGET_MARGIN = 1.1
 
@@ -59,6 +67,11 @@ class Schedule:
     starts: list[float]           # request time of each transition
     levels: list[float]           # requested level after each transition
     t_end: float                  # end of the last hold
+    #: what each transition is (:meth:`.plan.BumpPlan.kind`); empty: every one a ``step``
+    kinds: list[str] = field(default_factory=list)
+
+    def kind(self, k: int) -> str:
+        return self.kinds[k] if k < len(self.kinds) else "step"
 
     def holds(self) -> list[tuple[float, float]]:
         """(start, end) of the settle hold and of each step's hold."""
@@ -81,6 +94,7 @@ class BumpDriver:
         self.guarded_holds: list[int] = []
         self.finished = False
         self.starts: list[float] = []
+        self.indices: list[int] = []          # the plan's transition number of each start
         self.hold_lengths: list[float] = []
         self.t_end: float | None = None
         self._t_hold = plan.ramp_s            # start of the current hold (the settle hold first)
@@ -131,7 +145,8 @@ class BumpDriver:
         t_end = self.t_end if self.t_end is not None else (self._t[-1] + self.ts if self._t else self._t_hold)
         settle = (self.starts[0] if self.starts else t_end) - self.plan.ramp_s
         return Schedule(self.plan.ramp_s, settle, list(self.starts),
-                        [self.plan.level(k) for k in range(len(self.starts))], t_end)
+                        [self.plan.level(k) for k in self.indices], t_end,
+                        [self.plan.kind(k) for k in self.indices])
 
     def _advance(self, t: float) -> None:
         plan = self.plan
@@ -141,22 +156,30 @@ class BumpDriver:
         if self.starts:
             self.hold_lengths.append(t - self._t_hold)
         done = len(self.starts)
+        per = plan.transitions_per_excursion
+        nxt = self.indices[-1] + 1 if self.indices else 0
+        if self._guarded:                      # back to u0 at once: skip the rest of the excursion
+            while nxt % per != per - 1:
+                nxt += 1
         remaining = plan.budget_s - t
         longest = max(self.hold_lengths + [plan.hold_min_s])
-        if done >= plan.steps:
+        if nxt >= plan.steps:
             return self._finish(t)
+        left = per - nxt % per                 # holds until back at u0, this one included
+        going_out = nxt % per == 0
         if plan.fixed:
             hold_max = plan.hold_max_s
-        elif done % 2 == 0:                    # at u0: go out only if out and back fit
-            if done >= 2 and remaining < 2 * BUDGET_MARGIN * longest:
+        elif going_out:                        # at u0: go out only if the whole excursion fits
+            if done >= 2 and remaining < left * BUDGET_MARGIN * longest:
                 return self._finish(t)
-            hold_max = min(plan.hold_max_s, remaining / 2.0)
+            hold_max = min(plan.hold_max_s, remaining / left)
         else:                                  # out: always come back, within what is left
-            hold_max = min(plan.hold_max_s, remaining)
-        if hold_max < plan.hold_min_s and done >= 2 and done % 2 == 0:
+            hold_max = min(plan.hold_max_s, remaining / left)
+        if hold_max < plan.hold_min_s and done >= 2 and going_out:
             return self._finish(t)
         self.starts.append(t)
-        self._level = plan.level(done)
+        self.indices.append(nxt)
+        self._level = plan.level(nxt)
         self._t_hold = t
         self._hold_min = min(plan.hold_min_s, max(hold_max, 0.0))
         self._hold_max = max(hold_max, self._hold_min)
@@ -184,7 +207,7 @@ class BumpDriver:
     def _finish(self, t: float) -> None:
         self.finished = True
         self.t_end = t
-        self._level = self.plan.u0 if len(self.starts) % 2 == 0 else self._level
+        self._level = self.plan.u0      # every excursion ends there; the run's stop follows
 
     # -------------------------------------------------------------------------- settling
     def _quarters(self) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray] | None:
@@ -217,6 +240,9 @@ class BumpDriver:
             se = sigma * math.sqrt(1.0 / y3.size + 1.0 / y4.size)
         else:
             se = sigma * math.sqrt(12.0 / (y4.size ** 3 * self.ts ** 2)) * math.sqrt(2.0)
+        if self.order == 2 and self.starts and self._level != self.plan.u0:
+            t63 = self._rate_time_to_63(a4, sigma)
+            return t63 is not None and self._t[-1] - self._t_hold >= HOLD_T63_MULTIPLE * t63
         if abs(a4 - a3) > SETTLE_FRACTION * abs(a4 - self._prev_level) + SETTLE_SIGMAS * se:
             return False
         if self.order == 1 and self.starts:        # and five of its own 63 % times have passed
@@ -234,6 +260,26 @@ class BumpDriver:
         if change == 0:
             return 0.0
         crossed = np.flatnonzero((smooth - (self._prev_level + 0.632 * change)) * np.sign(change) >= 0)
+        if crossed.size == 0:
+            return None
+        return self._t[int(crossed[0]) + w // 2] - self._t_hold
+
+    def _rate_time_to_63(self, final: float, sigma: float) -> float | None:
+        """Time from the hold's start until the rate — least-squares slopes over a sliding
+        window of :data:`RATE_WINDOW_FRACTION` of the hold — first crossed 63.2 % of the way
+        from the previous hold's rate to ``final``; None while the change is within the
+        slopes' noise."""
+        y = np.asarray(self._y)
+        w = max(8, int(y.size * RATE_WINDOW_FRACTION))
+        if y.size < 2 * w:
+            return None
+        j = np.arange(w) - (w - 1) / 2.0
+        kernel = j / float(np.dot(j, j)) / self.ts
+        rate = np.convolve(y, kernel[::-1], mode="valid")
+        change = final - self._prev_level
+        if abs(change) <= 3.0 * sigma * float(np.linalg.norm(kernel)):
+            return None
+        crossed = np.flatnonzero((rate - (self._prev_level + 0.632 * change)) * np.sign(change) >= 0)
         if crossed.size == 0:
             return None
         return self._t[int(crossed[0]) + w // 2] - self._t_hold

@@ -8,8 +8,17 @@ slew limit stay active:
 2. a **settle** hold at u0;
 3. up to ``steps`` **transitions**, both ways around u0: u0 + du, u0, u0 − du, u0, u0 + du, …
    (du < 0 goes down first). Each excursion above u0 is matched by one below, so a rig whose
-   slope changes with u is measured on both sides, and an integrating output (a position)
-   comes back near where it started.
+   slope changes with u is measured on both sides.
+
+An integrating output (m = 2, a position) is measured **while it moves**. From rest, static
+friction and gear play act: the first moment of a step out of rest crosses the play with the
+load disconnected, and a step back to the input that holds the output ends in a stop where
+friction, not the model, sets the rate. Neither is the ultra-local model's alpha. So each
+excursion is four transitions (:data:`POSITION_CYCLE`): a **start** to u0 + du, a **step while
+moving** to u0 + 1.5·du and one back to u0 + du (teeth in contact, friction of one sign), and a
+**stop** at u0; then the same below u0. Only the steps while moving are used for the estimates
+(:mod:`.steps`). Holding a speed in one direction and stepping on top of it is common practice
+in tuning servo drives for this reason.
 
 Each hold lasts **until the output has settled** (:mod:`.driver`), at least ``hold_min_s`` and
 at most ``hold_max_s``, and the whole profile stays within ``budget_s``: as many steps as the
@@ -42,6 +51,12 @@ DEFAULT_STEPS = 6
 MAX_STEPS = 8
 #: A hold must span at least this many samples to be analysed.
 MIN_HOLD_SAMPLES = 25
+#: Shortest hold of an integrating output (s): its holds end once the rate has settled (or at
+#: the limits guard), a few of the drive's time constants, so the one-second floor of a speed
+#: rig would only carry the output into its limits.
+POSITION_HOLD_MIN_S = 0.2
+#: One excursion of an integrating output: (offset from u0 in units of du, kind) per transition.
+POSITION_CYCLE = ((1.0, "start"), (1.5, "moving"), (1.0, "moving"), (0.0, "stop"))
 
 
 class PlanError(ValueError):
@@ -70,6 +85,7 @@ class BumpPlan:
     u_min: float
     u_max: float
     unit: str = ""
+    order: int = 1             # 2: the excursions of an integrating output (module docstring)
 
     @property
     def ramp_rate(self) -> float:
@@ -93,11 +109,25 @@ class BumpPlan:
         """Time the shaper takes to move the actuator by |du| (0 without a slew limit)."""
         return abs(self.du) / self.slew_per_s if self.slew_per_s else 0.0
 
+    @property
+    def transitions_per_excursion(self) -> int:
+        """Transitions from leaving u0 to being back at it: out and back, or the four of
+        :data:`POSITION_CYCLE`."""
+        return 2 if self.order == 1 else len(POSITION_CYCLE)
+
     def level(self, k: int) -> float:
         """Requested level after transition k (k = −1: the operating level before the first)."""
-        if k < 0 or k % 2 == 1:
+        if k < 0:
             return self.u0
-        return self.u0 + (self.du if k % 4 == 0 else -self.du)
+        n = self.transitions_per_excursion
+        side = 1.0 if (k // n) % 2 == 0 else -1.0
+        if self.order == 1:
+            return self.u0 if k % 2 == 1 else self.u0 + side * self.du
+        return self.u0 + side * POSITION_CYCLE[k % n][0] * self.du
+
+    def kind(self, k: int) -> str:
+        """What transition k is: ``step`` (m = 1), or ``start``, ``moving`` or ``stop`` (m = 2)."""
+        return "step" if self.order == 1 else POSITION_CYCLE[k % len(POSITION_CYCLE)][1]
 
     def ramp(self, t: float) -> float:
         """The ramp's requested value at ``t`` (u0 from ramp_s on)."""
@@ -110,7 +140,7 @@ class BumpPlan:
                 "slew_per_s": self.slew_per_s, "settle_min_s": self.settle_min_s,
                 "settle_max_s": self.settle_max_s, "hold_min_s": self.hold_min_s,
                 "hold_max_s": self.hold_max_s, "steps": self.steps, "budget_s": self.budget_s,
-                "duration_s": self.duration_s, "unit": self.unit}
+                "duration_s": self.duration_s, "unit": self.unit, "order": self.order}
 
 
 def default_operating_point(u_min: float, u_max: float, safe: float, order: int = 1) -> float:
@@ -157,12 +187,14 @@ def plan_bump(u_min: float, u_max: float, safe: float, slew_per_s: float | None,
         raise PlanError("--step", "--step 0: the step must be non-zero (default: 10 % of the "
                                   f"actuator range, {DEFAULT_STEP_FRACTION * span:g}{u_text})")
     room = min(u0 - u_min, u_max - u0)
-    if abs(du) > room:
+    reach = 1.0 if order == 1 else max(abs(c[0]) for c in POSITION_CYCLE)
+    if reach * abs(du) > room:
         given = f"--step {du:g}" if step is not None else f"the default step {du:g}{u_text} (--step)"
-        raise PlanError("--step", f"{given}: u0 ± du = {u0:g} ± {abs(du):g}{u_text} leaves the "
+        what = "u0 ± du" if order == 1 else "u0 ± 1.5·du (the steps while moving)"
+        raise PlanError("--step", f"{given}: {what} = {u0:g} ± {reach * abs(du):g}{u_text} leaves the "
                                   f"actuator range [{u_min:g}, {u_max:g}]{u_text}; at --operating-level {u0:g} "
-                                  f"the step may be at most {room:g}{u_text} "
-                                  f"(allowed: 0 < |--step| <= {room:g})")
+                                  f"the step may be at most {room / reach:g}{u_text} "
+                                  f"(allowed: 0 < |--step| <= {room / reach:g})")
     ts = 1.0 / rate_hz
     slew_time = abs(du) / slew_per_s if slew_per_s else 0.0
     shortest = max(MIN_HOLD_SAMPLES * ts, 4.0 * slew_time)
@@ -175,15 +207,19 @@ def plan_bump(u_min: float, u_max: float, safe: float, slew_per_s: float | None,
     if ramp < 0:
         raise PlanError("--ramp", f"--ramp {ramp:g}: must be >= 0 s")
     ramp = 0.0 if u0 == safe else max(ramp, abs(u0 - safe) / slew_per_s if slew_per_s else 0.0)
-    if steps is not None and (isinstance(steps, bool) or not isinstance(steps, int) or steps < 2
-                              or steps % 2 or steps > MAX_STEPS):
-        raise PlanError("--steps", f"--steps {steps!r}: must be an even whole number from 2 to "
-                                   f"{MAX_STEPS} (each excursion from u0 has a step out and a step back)")
-    n = DEFAULT_STEPS if steps is None else steps
+    per = 2 if order == 1 else len(POSITION_CYCLE)
+    if steps is not None and (isinstance(steps, bool) or not isinstance(steps, int) or steps < per
+                              or steps % per or steps > MAX_STEPS):
+        what = ("an even whole number from 2 to {MAX_STEPS} (each excursion from u0 has a step out "
+                "and a step back)" if order == 1 else
+                f"{per} or {2 * per} (each excursion of a position has a start, two steps while "
+                "moving and a stop)")
+        raise PlanError("--steps", f"--steps {steps!r}: must be {what.format(MAX_STEPS=MAX_STEPS)}")
+    n = (DEFAULT_STEPS if order == 1 else MAX_STEPS) if steps is None else steps
     limit = math.inf if max_duration_s is None else float(max_duration_s)
     budget = DEFAULT_BUDGET_S if budget_s is None else _finite("--budget", budget_s)
     budget = min(budget, 0.95 * limit)
-    hold_min = max(DEFAULT_HOLD_MIN_S, shortest)
+    hold_min = max(DEFAULT_HOLD_MIN_S if order == 1 else POSITION_HOLD_MIN_S, shortest)
     if hold_s is not None:
         hold_min = hold_max = float(hold_s)
     else:
@@ -194,7 +230,7 @@ def plan_bump(u_min: float, u_max: float, safe: float, slew_per_s: float | None,
         settle_min, settle_max = hold_min, max(SETTLE_BUDGET_FRACTION * budget, hold_min)
     plan = BumpPlan(float(u0), float(du), float(safe), float(ramp),
                     float(slew_per_s) if slew_per_s else None, settle_min, settle_max, hold_min,
-                    hold_max, int(n), float(budget), float(u_min), float(u_max), unit)
+                    hold_max, int(n), float(budget), float(u_min), float(u_max), unit, int(order))
     least = ramp + settle_min + 2 * hold_min
     if least > budget:
         raise PlanError("--budget", f"--budget {budget:g}: the ramp ({ramp:.3g} s), the settle hold "

@@ -20,6 +20,11 @@ at the first sample after its requested time whose **applied** actuator value mo
 * the noise floor from the second differences of every hold (:mod:`.noise`), and the dead zone
   from the ramp (:mod:`.deadzone`).
 
+For an integrating output (m = 2) only the **steps while moving** are estimated (the profile's
+``start`` and ``stop`` transitions, :mod:`.plan`, are recorded and left out: from rest and into a
+stop, static friction and gear play act, not the model). A hold the limits guard cut too short
+to fit a level leaves its step out with a warning instead of failing the test.
+
 Each value is then given as the mean ± spread (sample standard deviation) over the steps, and
 separately for the steps up and the steps down. Whether the estimates are good enough to use is
 judged by :mod:`.verdict`, not here.
@@ -82,6 +87,7 @@ class StepEstimate:
     alpha_sigma: float | None = None  # standard deviation of alpha_slope from the noise floor
     window_s: float | None = None     # slope window after the step
     outlier: bool = False             # left out of the means (see _mark_outliers)
+    kind: str = "step"               # step (m = 1); start, moving or stop (m = 2; plan.kind)
 
     def as_dict(self) -> dict:
         return asdict(self)
@@ -133,6 +139,11 @@ class BumpEstimates:
     @property
     def responded(self) -> list[StepEstimate]:
         return [s for s in self.steps if s.responded]
+
+    @property
+    def measured(self) -> list[StepEstimate]:
+        """The steps the estimates may come from (m = 2: not the starts and stops)."""
+        return [s for s in self.steps if s.kind in ("step", "moving")]
 
     def as_dict(self) -> dict:
         d = asdict(self)
@@ -271,21 +282,47 @@ def analyse_bump(t: np.ndarray, y: np.ndarray, u: np.ndarray, *, order: int, pla
     # holds: the settle hold ends at the first step, hold k at step k + 1 (the last at t_end)
     n = min(t.size, _index_at(t, schedule.t_end + 0.5 * ts))
     ends = starts[1:] + [n]
-    stretches = []
-    for (h0, h1), end in zip(schedule.holds(), [starts[0]] + ends):
+    stretches: list[slice | None] = []
+    for k, ((h0, h1), end) in enumerate(zip(schedule.holds(), [starts[0]] + ends)):
         t_end = t[end - 1] + ts
         start = _index_at(t, t_end - STEADY_FRACTION * (h1 - h0))
         if end - start < MIN_HOLD_SAMPLES // 2:
-            raise EstimationError(f"a hold has only {end - start} steady samples; lengthen "
-                                  "--initial-hold and --hold")
+            if order == 1 or k == 0:
+                raise EstimationError(f"a hold has only {end - start} steady samples; lengthen "
+                                      "--initial-hold and --hold")
+            stretches.append(None)                # cut short by the limits guard
+            continue
         stretches.append(slice(start, end))
-    noise = noise_floor([y[s] for s in stretches])
+    noise = noise_floor([y[s] for s in stretches if s is not None])
     sigma = noise.sigma
 
-    steps = [_one_step(order, t, y, u, ts, plan, k, starts[k], ends[k], stretches[k],
-                       stretches[k + 1], sigma, output, warnings) for k in range(len(starts))]
+    steps = []
+    for k in range(len(starts)):
+        kind = schedule.kind(k)
+        before, after = stretches[k], stretches[k + 1]
+        if kind in ("start", "stop") or before is None or after is None:
+            du = float(u[min(ends[k], t.size) - 1] - u[starts[k] - 1])
+            step = StepEstimate("up" if du > 0 else "down", float(t[starts[k]]), du, math.nan,
+                                math.nan, math.nan, False, float(t[ends[k] - 1] - t[starts[k]]),
+                                kind=kind)
+            if kind not in ("start", "stop"):
+                warnings.append(f"step {k + 1} ({step.direction}): its hold or the one before it "
+                                "was cut too short to fit a level (the limits guard); no estimate "
+                                "from it")
+            steps.append(step)
+            continue
+        step = _one_step(order, t, y, u, ts, plan, k, starts[k], ends[k], before, after, sigma,
+                         output, warnings)
+        step.kind = kind
+        steps.append(step)
     _mark_outliers(steps, warnings)
     good = [s for s in steps if s.responded]
+    if not good and order == 2 and not any(s.kind == "moving" and math.isfinite(s.level_before)
+                                           for s in steps):
+        raise EstimationError("no step while moving could be measured: the output reached the "
+                              "limits guard (a quarter of the limit range from each limit) too "
+                              "soon after each start; use a smaller --step, or widen the limits of "
+                              f"{output} if the rig allows it")
     if not good:
         raise EstimationError(f"no response to the steps: {output} did not change beyond its noise "
                               f"({sigma:.3g}) when the actuator moved by {plan.du:g}; check that "

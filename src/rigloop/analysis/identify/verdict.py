@@ -5,6 +5,7 @@ push the output away from the setpoint; a value several times off makes it limit
 tool **refuses** — exits non-zero with the reason and what to try, and prints no config
 snippet — when the estimates do not hold together:
 
+* **too few steps while moving** (m = 2): fewer than two were measured;
 * **the output hardly moved**: a step's change of level (m = 1) or of rate (m = 2) is within
   :data:`.steps.RESPONSE_SIGMAS` standard errors of the noise, or the output moved less than
   :data:`MOVED_SIGMAS` noise standard deviations over the step (m = 2: the change of rate times
@@ -73,8 +74,8 @@ def judge(est: BumpEstimates, plan: BumpPlan) -> tuple[list[Refusal], list[str]]
     m = est.order
     quiet = []
     for k, s in enumerate(est.steps):
-        if s.outlier:
-            continue
+        if s.outlier or s not in est.measured or not math.isfinite(s.level_before):
+            continue                      # a start or stop, or a hold the guard cut short
         moved = abs(s.level_after - s.level_before) * (1.0 if m == 1 else s.hold_s)
         if not s.responded or (sigma > 0 and moved < MOVED_SIGMAS * sigma):
             quiet.append(f"{k + 1} ({s.direction}: {moved:.3g} against a noise of {sigma:.3g})")
@@ -84,6 +85,12 @@ def judge(est: BumpEstimates, plan: BumpPlan) -> tuple[list[Refusal], list[str]]
             "use a larger --step, or choose --operating-level away from a dead zone or a stop; check that the "
             "actuator drives this output"))
     good = est.responded
+    if m == 2 and len(good) < 2:
+        refusals.append(Refusal(
+            f"only {len(good)} step(s) while moving could be measured (the limits guard ended the "
+            "excursions early, or the steps did not answer)",
+            "use a smaller --step so that the output travels less per hold, or widen the output's "
+            "limits if the rig allows it"))
     alphas = [s.alpha for s in good if s.alpha is not None]
     signs = {math.copysign(1.0, a) for a in alphas if a != 0}
     if len(signs) > 1:
