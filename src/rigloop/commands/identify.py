@@ -37,7 +37,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                              "an order-2 output)")
     parser.add_argument("--step", type=float, metavar="DU",
                         help="size of the step du (default: 10 %% of the actuator range; negative "
-                             "steps down first); u0 ± du must stay inside the range")
+                             "steps down first); u0 ± du must stay inside the range (order 2: "
+                             "u0 ± 1.5 du, the start level of each excursion is u0 ± du and the "
+                             "steps while moving are du/2)")
     parser.add_argument("--initial-hold", dest="settle", type=float, metavar="S",
                         help="hold at u0 before the first step, s (default: until settled)")
     parser.add_argument("--hold", type=float, metavar="S",
@@ -46,7 +48,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="duration of the slow ramp from the safe value to the operating level, "
                              "s (default 4; never faster than the slew limit); it shows a dead zone")
     parser.add_argument("--steps", type=int, metavar="N",
-                        help="most steps, even, up to 8 (default 6, fewer when --budget runs out)")
+                        help="most steps, even, up to 8 (default 6, fewer when --budget runs out; "
+                             "order 2: 4 or 8 transitions, default 8)")
     parser.add_argument("--budget", type=float, metavar="S",
                         help="time budget of the whole test, s (default 120, and below "
                              "limits.max_duration_s)")
